@@ -1,0 +1,159 @@
+"""One call from a design to its numbers: :func:`analyze`."""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .design import Design
+from .frequency import FrequencyGrid
+from .metrics import DB_3, db, lowest_crossing, search_grid
+from .responses import ZERO_GAIN_RATIO, ResponseSet, StageResponses
+from .stage import Stage, TailNorton, build_stage
+
+__all__ = ["Analysis", "analyze"]
+
+
+def _fin(v):
+    return None if v is None or not math.isfinite(v) else float(v)
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """Exact small-signal results of one design (SI units, Hz at the edge).
+
+    Attributes (null/None where infinite or undefined)
+    ----------
+    adm_db : float
+        20·log10|A_dm(0)| of the primary gain (balanced; A_dm,se with a
+        mirror load; A_total with a second stage — then see ``adm_db_first``).
+    f3db_hz, ugf_hz : float or None
+    acm_se_db, cmrr_se_db, cmrr_db : float or None
+    cmrr_corner_hz : float or None
+    """
+
+    design: Design
+    stage: Stage
+    responses: StageResponses
+    dc: ResponseSet
+    primary: str
+    adm_db: float | None
+    adm_db_first: float | None
+    a_total_db: float | None
+    f3db_hz: float | None
+    ugf_hz: float | None
+    acm_se_db: float | None
+    cmrr_se_db: float | None
+    cmrr_db: float | None
+    cmrr_textbook_db: float | None
+    cmrr_corner_hz: float | None
+    natural_frequencies_rad_s: np.ndarray = field(repr=False)
+    _search: np.ndarray = field(repr=False)
+
+    @property
+    def tail(self) -> TailNorton | None:
+        return self.stage.tail
+
+    @property
+    def operating_point(self):
+        return self.stage.operating_point
+
+    def curves(self, grid: FrequencyGrid | None = None) -> ResponseSet:
+        """All gains on ``grid`` (default: the design's sweep)."""
+        grid = grid or FrequencyGrid.from_design(self.design)
+        return self.responses.at(grid.f_hz)
+
+    def to_json(self) -> dict:
+        """The DESIGN.md §4 object (SI units; None for infinite/undefined)."""
+        tail = self.tail.to_json() if self.tail is not None else {"resistance": None,
+                                                                  "capacitance": None}
+        out = {
+            "name": self.design.name,
+            "operating_point": self.operating_point.to_json(),
+            "adm_db": _fin(self.adm_db_first if self.a_total_db is not None else self.adm_db),
+            "f3db_hz": _fin(self.f3db_hz),
+            "ugf_hz": _fin(self.ugf_hz),
+            "acm_se_db": _fin(self.acm_se_db),
+            "cmrr_se_db": _fin(self.cmrr_se_db),
+            "cmrr_db": _fin(self.cmrr_db),
+            "cmrr_corner_hz": _fin(self.cmrr_corner_hz),
+            "cmrr_textbook_db": _fin(self.cmrr_textbook_db),
+            "tail": tail,
+        }
+        if self.a_total_db is not None:
+            out["a_total_db"] = _fin(self.a_total_db)
+        return out
+
+
+def _gain_db(value: complex, reference: float) -> float | None:
+    """dB of a DC gain, None when it is zero to rounding (DESIGN.md §2)."""
+    mag = abs(value)
+    if mag <= ZERO_GAIN_RATIO * reference:
+        return None
+    return 20.0 * math.log10(mag)
+
+
+def analyze(design: Design) -> Analysis:
+    """Analyse a design: bias, exact network, DC gains, f_3dB, UGF, CMRR and corner.
+
+    Parameters
+    ----------
+    design : Design
+
+    Returns
+    -------
+    Analysis
+
+    Raises
+    ------
+    BiasError, NetworkError
+        With one-line messages.
+    """
+    stage = build_stage(design)
+    resp = StageResponses(stage)
+    dc = resp.dc()
+    primary = resp.primary
+    a0 = complex(dc.get(primary)[0])
+    ref = abs(complex(dc.adm[0])) if dc.adm is not None else abs(complex(dc.adm_se[0]))
+    first = dc.adm if stage.balanced else dc.adm_se
+    adm_db_first = _gain_db(complex(first[0]), ref) if ref > 0 else None
+    adm_db = _gain_db(a0, abs(a0)) if abs(a0) > 0 else None
+    a_total_db = adm_db if primary == "a_total" else None
+
+    poles = resp.solver.poles()
+    grid = search_grid(poles, design.sweep.start, design.sweep.stop)
+    on_grid = resp.at(grid)
+
+    def curve(name):
+        return lambda f: db(resp.gain(name, f))
+
+    f3db = ugf = None
+    if adm_db is not None:
+        f3db = lowest_crossing(curve(primary), adm_db - DB_3, grid, db(on_grid.get(primary)))
+        if abs(a0) > 1:
+            ugf = lowest_crossing(curve(primary), 0.0, grid, db(on_grid.get(primary)))
+
+    acm_se_db = _gain_db(complex(dc.acm_se[0]), ref)
+    se_ref = abs(complex(dc.adm_se[0]))
+    cmrr_se_db = None
+    corner = None
+    if acm_se_db is not None and se_ref > 0:
+        cmrr_se_db = 20 * math.log10(se_ref) - acm_se_db
+
+        def cmrr_curve(f):
+            r = resp.at(f)
+            return db(r.adm_se) - db(r.acm_se)
+
+        corner = lowest_crossing(cmrr_curve, cmrr_se_db - DB_3, grid,
+                                 db(on_grid.adm_se) - db(on_grid.acm_se))
+    cmrr_db = cmrr_textbook_db = None
+    if stage.balanced:
+        acm_dm_db = _gain_db(complex(dc.acm_dm[0]), ref)
+        if acm_dm_db is not None:
+            cmrr_db = 20 * math.log10(ref) - acm_dm_db
+        acm_cm_db = _gain_db(complex(dc.acm_cm[0]), ref)
+        if acm_cm_db is not None:
+            cmrr_textbook_db = 20 * math.log10(ref) - acm_cm_db
+    return Analysis(design, stage, resp, dc, primary, adm_db, adm_db_first, a_total_db, f3db, ugf,
+                    acm_se_db, cmrr_se_db, cmrr_db, cmrr_textbook_db, corner, poles, grid)

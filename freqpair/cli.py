@@ -1,0 +1,74 @@
+"""Command line: ``freqpair analyze DESIGN.toml [--json] [--csv FILE]``."""
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+
+from .errors import FreqpairError
+
+__all__ = ["main"]
+
+
+def _load(path):
+    from .design import BUILTIN_EXAMPLE, design_from_text, load_design
+    if path is None:
+        return design_from_text(BUILTIN_EXAMPLE, origin="built-in example")
+    return load_design(path)
+
+
+def cmd_analyze(args) -> int:
+    from .analysis import analyze
+    from .summary import format_summary
+    design = _load(args.design)
+    result = analyze(design)
+    if args.csv:
+        from .export import write_curves_csv
+        write_curves_csv(result, args.csv)
+    if args.json:
+        sys.stdout.write(json.dumps(result.to_json(), allow_nan=False) + "\n")
+    else:
+        print(format_summary(result))
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="freqpair",
+        description="Exact small-signal frequency analysis of differential input stages.")
+    sub = parser.add_subparsers(dest="command", required=True)
+    p = sub.add_parser("analyze", help="analyse a design file (or the built-in example)",
+                       description="Analyse a design: operating point, gains, f_3dB, UGF, "
+                                   "CMRR and its corner. With no DESIGN, the built-in example.")
+    p.add_argument("design", nargs="?", help="design file (TOML); omit for the built-in example")
+    p.add_argument("--example", action="store_true", help="use the built-in example design")
+    p.add_argument("--json", action="store_true", help="print one JSON object (SI units)")
+    p.add_argument("--csv", metavar="FILE", help="also write the curves to FILE as CSV")
+    p.set_defaults(func=cmd_analyze)
+    return parser
+
+
+def main(argv=None) -> int:
+    """Entry point; returns the process exit code."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except FreqpairError as exc:
+        print(f"freqpair: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("freqpair: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # last resort: one line, never a traceback
+        if os.environ.get("FREQPAIR_DEBUG"):
+            raise
+        msg = str(exc).splitlines()[0] if str(exc) else ""
+        print(f"freqpair: internal error: {exc.__class__.__name__}: {msg} "
+              "(set FREQPAIR_DEBUG=1 for details)", file=sys.stderr)
+        return 3
+
+
+if __name__ == "__main__":
+    sys.exit(main())

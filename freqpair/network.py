@@ -1,0 +1,364 @@
+"""A generic linear small-signal network: stamps → G and C, solved on many s at once.
+
+Modified nodal analysis: unknowns are node voltages and the branch currents
+of the ideal voltage sources that drive the inputs. The system is
+
+    (G + s·C) · x = B · u,        y = L · x
+
+with ``u`` the input-source voltages and ``y`` the chosen outputs.
+
+Array layout (used everywhere in freqpair): frequency first. A transfer
+matrix over ``n_f`` frequencies is ``(n_f, n_out, n_in)``.
+
+Solving uses one QZ (generalized Schur) reduction of the pencil, after
+which each frequency costs an O(n²) triangular back-substitution,
+vectorised over all frequencies. Poles and zeros come from generalized
+eigenvalues of the (frequency-scaled) descriptor pencil.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg as sla
+
+from .errors import NetworkError
+
+__all__ = ["Network", "FrequencySolver", "GROUND"]
+
+GROUND = "gnd"
+
+
+class Network:
+    """Nodes and elements of a linear small-signal circuit.
+
+    Elements are stamped as they are added; :meth:`matrices` returns the
+    cached ``(G, C, B)`` and any later change clears that cache.
+    """
+
+    def __init__(self):
+        self._nodes: dict[str, int] = {}
+        self._g: list[tuple[int, int, float]] = []
+        self._c: list[tuple[int, int, float]] = []
+        self._vccs: list[tuple[int, int, int, int, float]] = []
+        self._sources: list[tuple[str, int, int]] = []
+        self.elements: list[tuple[str, str, tuple[str, ...], float]] = []
+        self._cache = None
+
+    # ------------------------------------------------------------ nodes
+    def node(self, name: str) -> int:
+        """Index of node ``name`` (created on first use); ground is -1."""
+        if name == GROUND:
+            return -1
+        if name not in self._nodes:
+            self._nodes[name] = len(self._nodes)
+            self._cache = None
+        return self._nodes[name]
+
+    @property
+    def node_names(self) -> list[str]:
+        """Node names in matrix order (ground excluded)."""
+        return list(self._nodes)
+
+    @property
+    def input_names(self) -> list[str]:
+        """Names of the input voltage sources, in column order of B."""
+        return [name for name, _, _ in self._sources]
+
+    @property
+    def size(self) -> int:
+        """Number of unknowns (nodes + source branch currents)."""
+        return len(self._nodes) + len(self._sources)
+
+    # ------------------------------------------------------------ stamps
+    def conductance(self, a: str, b: str, siemens: float, label: str = "") -> None:
+        """Conductance [S] between nodes a and b (0 is allowed: absent)."""
+        if not math.isfinite(siemens) or siemens < 0:
+            raise NetworkError(f"{label or 'conductance'}: {siemens!r} S is not a finite "
+                               "value ≥ 0")
+        if siemens == 0:
+            return
+        self._g.append((self.node(a), self.node(b), siemens))
+        self.elements.append(("G", label, (a, b), siemens))
+        self._cache = None
+
+    def resistor(self, a: str, b: str, ohms: float, label: str = "") -> None:
+        """Resistor [Ω]; infinite means open. A zero resistor must be merged by the caller."""
+        if ohms == math.inf:
+            return
+        if not ohms > 0:
+            raise NetworkError(f"{label or 'resistor'}: {ohms!r} Ω is not a positive value "
+                               "(merge the nodes instead)")
+        self.conductance(a, b, 1.0 / ohms, label)
+
+    def capacitor(self, a: str, b: str, farads: float, label: str = "") -> None:
+        """Capacitor [F] between nodes a and b (0 means absent)."""
+        if not math.isfinite(farads) or farads < 0:
+            raise NetworkError(f"{label or 'capacitor'}: {farads!r} F is not a finite value ≥ 0")
+        if farads == 0:
+            return
+        self._c.append((self.node(a), self.node(b), farads))
+        self.elements.append(("C", label, (a, b), farads))
+        self._cache = None
+
+    def vccs(self, out_from: str, out_to: str, ctrl_p: str, ctrl_n: str, gm: float,
+             label: str = "") -> None:
+        """Current g_m·(v(ctrl_p) − v(ctrl_n)) flowing from node ``out_from`` through
+        the source into node ``out_to`` (e.g. collector → emitter)."""
+        if not math.isfinite(gm):
+            raise NetworkError(f"{label or 'vccs'}: g_m = {gm!r} is not finite")
+        if gm == 0:
+            return
+        self._vccs.append((self.node(out_from), self.node(out_to), self.node(ctrl_p),
+                           self.node(ctrl_n), gm))
+        self.elements.append(("VCCS", label, (out_from, out_to, ctrl_p, ctrl_n), gm))
+        self._cache = None
+
+    def voltage_input(self, name: str, pos: str, neg: str = GROUND) -> None:
+        """An ideal input voltage source between ``pos`` and ``neg``."""
+        if name in self.input_names:
+            raise NetworkError(f"input {name!r} defined twice")
+        self._sources.append((name, self.node(pos), self.node(neg)))
+        self._cache = None
+
+    # ------------------------------------------------------------ matrices
+    def matrices(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """``(G, C, B)``: conductance, capacitance and input matrices (cached)."""
+        if self._cache is None:
+            self._cache = self._build()
+        return self._cache
+
+    def _build(self):
+        n_nodes = len(self._nodes)
+        n = n_nodes + len(self._sources)
+        G = np.zeros((n, n))
+        C = np.zeros((n, n))
+        B = np.zeros((n, len(self._sources)))
+
+        def two_terminal(M, a, b, v):
+            if a >= 0:
+                M[a, a] += v
+            if b >= 0:
+                M[b, b] += v
+            if a >= 0 and b >= 0:
+                M[a, b] -= v
+                M[b, a] -= v
+
+        for a, b, v in self._g:
+            two_terminal(G, a, b, v)
+        for a, b, v in self._c:
+            two_terminal(C, a, b, v)
+        for o1, o2, cp, cn, gm in self._vccs:
+            for row, sign_r in ((o1, 1.0), (o2, -1.0)):
+                if row < 0:
+                    continue
+                if cp >= 0:
+                    G[row, cp] += sign_r * gm
+                if cn >= 0:
+                    G[row, cn] -= sign_r * gm
+        for k, (_, p, m) in enumerate(self._sources):
+            row = n_nodes + k
+            if p >= 0:
+                G[p, row] += 1.0
+                G[row, p] += 1.0
+            if m >= 0:
+                G[m, row] -= 1.0
+                G[row, m] -= 1.0
+            B[row, k] = 1.0
+        self._check_connected(G, C)
+        return G, C, B
+
+    def _check_connected(self, G, C):
+        """Every node must reach ground through elements; else a named error."""
+        n_nodes = len(self._nodes)
+        names = self.node_names
+        # graph over nodes + ground (index n_nodes); sources connect their terminals
+        adj = [set() for _ in range(n_nodes + 1)]
+
+        def link(a, b):
+            a = n_nodes if a < 0 else a
+            b = n_nodes if b < 0 else b
+            adj[a].add(b)
+            adj[b].add(a)
+
+        for a, b, _ in self._g:
+            link(a, b)
+        for a, b, _ in self._c:
+            link(a, b)
+        for o1, o2, cp, cn, _ in self._vccs:
+            link(o1, o2)
+        for _, p, m in self._sources:
+            link(p, m)
+        seen = {n_nodes}
+        stack = [n_nodes]
+        while stack:
+            for nb in adj[stack.pop()]:
+                if nb not in seen:
+                    seen.add(nb)
+                    stack.append(nb)
+        floating = [names[i] for i in range(n_nodes) if i not in seen]
+        if floating:
+            raise NetworkError(f"node {floating[0]!r} is floating (no element connects it "
+                               "to the rest of the circuit)")
+
+    # ------------------------------------------------------------ outputs
+    def selector(self, combo: dict[str, float]) -> np.ndarray:
+        """Row vector picking a linear combination of node voltages,
+        e.g. ``{"o1": 1, "o2": -1}`` for a balanced output."""
+        row = np.zeros(self.size)
+        for name, weight in combo.items():
+            if name not in self._nodes:
+                raise NetworkError(f"output node {name!r} does not exist")
+            row[self._nodes[name]] += weight
+        return row
+
+    def solver(self, outputs: np.ndarray) -> "FrequencySolver":
+        """A :class:`FrequencySolver` for the outputs given as rows of ``outputs``."""
+        G, C, B = self.matrices()
+        return FrequencySolver(G, C, B, np.atleast_2d(outputs))
+
+
+@dataclass(frozen=True)
+class _Reduced:
+    AA: np.ndarray
+    BB: np.ndarray
+    Bt: np.ndarray
+    Lt: np.ndarray
+    s0: float
+
+
+class FrequencySolver:
+    """Evaluates ``H(s) = L (G + sC)^-1 B`` on many frequencies at once.
+
+    Parameters
+    ----------
+    G, C : ndarray, shape (n, n)
+        Conductance and capacitance matrices.
+    B : ndarray, shape (n, m)
+        Input matrix.
+    L : ndarray, shape (p, n)
+        Output matrix.
+
+    Notes
+    -----
+    The pencil is frequency-scaled by ``s0 = ‖G‖/‖C‖`` and reduced once to
+    generalized Schur form ``G = Q·AA·Zᴴ``, ``s0⁻¹·C``-scaled likewise;
+    each frequency is then an upper-triangular solve, vectorised over all
+    frequencies (n Python steps, not n_f).
+    """
+
+    def __init__(self, G, C, B, L):
+        self.G, self.C, self.B, self.L = G, C, B, L
+        self.n = G.shape[0]
+        self._red: _Reduced | None = None
+
+    @property
+    def s0(self) -> float:
+        """Frequency scale [rad/s] used to balance the pencil."""
+        nc = np.linalg.norm(self.C, 1)
+        return float(np.linalg.norm(self.G, 1) / nc) if nc > 0 else 1.0
+
+    def _reduce(self) -> _Reduced:
+        if self._red is None:
+            s0 = self.s0
+            AA, BB, Q, Z = sla.qz(self.G, self.C * s0, output="complex")
+            diag_a = np.abs(np.diag(AA))
+            diag_b = np.abs(np.diag(BB))
+            scale = max(np.abs(AA).max(), np.abs(BB).max(), 1e-300)
+            if np.any((diag_a <= 1e-14 * scale) & (diag_b <= 1e-14 * scale)):
+                raise NetworkError("the network is singular at every frequency "
+                                   "(a node has no defined voltage)")
+            self._red = _Reduced(AA, BB, Q.conj().T @ self.B, self.L @ Z, s0)
+        return self._red
+
+    def dc(self) -> np.ndarray:
+        """``H(0) = L G⁻¹ B`` by a direct solve, shape (p, m)."""
+        try:
+            lu = sla.lu_factor(self.G, check_finite=True)
+        except (ValueError, np.linalg.LinAlgError) as exc:
+            raise NetworkError(f"cannot solve the network at DC ({exc})") from None
+        if np.any(np.abs(np.diag(lu[0])) <= 1e-14 * np.abs(self.G).max()):
+            raise NetworkError("the network has no DC solution (a node has no DC path; "
+                               "e.g. a node connected only through capacitors)")
+        return self.L @ sla.lu_solve(lu, self.B)
+
+    def response(self, s: np.ndarray) -> np.ndarray:
+        """Transfer matrix at complex frequencies ``s`` [rad/s].
+
+        Parameters
+        ----------
+        s : array_like of complex, shape (n_f,)
+
+        Returns
+        -------
+        ndarray of complex, shape (n_f, p, m)
+        """
+        s = np.atleast_1d(np.asarray(s, dtype=complex))
+        red = self._reduce()
+        sp = s / red.s0
+        n = self.n
+        m = red.Bt.shape[1]
+        y = np.empty((s.size, n, m), dtype=complex)
+        AA, BB = red.AA, red.BB
+        for i in range(n - 1, -1, -1):
+            rhs = np.broadcast_to(red.Bt[i], (s.size, m))
+            if i < n - 1:
+                row = AA[i, i + 1:][None, :] + sp[:, None] * BB[i, i + 1:][None, :]
+                rhs = rhs - np.einsum("fj,fjm->fm", row, y[:, i + 1:, :])
+            diag = AA[i, i] + sp * BB[i, i]
+            y[:, i, :] = rhs / diag[:, None]
+        out = np.einsum("pn,fnm->fpm", red.Lt, y)
+        if not np.all(np.isfinite(out)):
+            bad = s[~np.all(np.isfinite(out), axis=(1, 2))][0]
+            raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")
+        return out
+
+    def response_direct(self, s: np.ndarray) -> np.ndarray:
+        """Reference: a batched dense solve of (G + sC) at each s (slower)."""
+        s = np.atleast_1d(np.asarray(s, dtype=complex))
+        A = self.G[None, :, :] + s[:, None, None] * self.C[None, :, :]
+        x = np.linalg.solve(A, np.broadcast_to(self.B, (s.size,) + self.B.shape))
+        return np.einsum("pn,fnm->fpm", self.L, x)
+
+    # ------------------------------------------------------------ poles / zeros
+    def poles(self) -> np.ndarray:
+        """Finite natural frequencies of the network [rad/s] (all modes)."""
+        return finite_generalized_eigenvalues(self.G, self.C, self.s0)
+
+    def zeros(self, b: np.ndarray, l: np.ndarray) -> np.ndarray:
+        """Finite transmission zeros [rad/s] of the SISO response ``l·(G+sC)⁻¹·b``.
+
+        Parameters
+        ----------
+        b : ndarray, shape (n,)
+            Input vector (a combination of the columns of B).
+        l : ndarray, shape (n,)
+            Output row.
+        """
+        n = self.n
+        Ga = np.zeros((n + 1, n + 1))
+        Ca = np.zeros((n + 1, n + 1))
+        Ga[:n, :n] = self.G
+        Ga[:n, n] = b
+        Ga[n, :n] = l
+        Ca[:n, :n] = self.C
+        return finite_generalized_eigenvalues(Ga, Ca, self.s0)
+
+
+def finite_generalized_eigenvalues(G, C, s0: float, tol: float = 1e-12) -> np.ndarray:
+    """Finite roots s of det(G + s·C) = 0 [rad/s].
+
+    The pencil is scaled (C·s0) for conditioning; eigenvalues come in
+    homogeneous form (α, β) and a pair counts as infinite when |β| ≤ tol·|α|
+    (after normalising α, β to unit length).
+    """
+    w = sla.eig(G, -C * s0, left=False, right=False, homogeneous_eigvals=True)
+    alpha, beta = w[0], w[1]
+    norm = np.hypot(np.abs(alpha), np.abs(beta))
+    ok = norm > 0
+    alpha = np.where(ok, alpha / np.where(ok, norm, 1), 0)
+    beta = np.where(ok, beta / np.where(ok, norm, 1), 0)
+    finite = ok & (np.abs(beta) > tol * np.abs(alpha))
+    lam = alpha[finite] / beta[finite]
+    return np.sort_complex(lam * s0)
