@@ -33,11 +33,7 @@ def cmd_analyze(args) -> int:
     return 0
 
 
-def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
-        prog="freqpair",
-        description="Exact small-signal frequency analysis of differential input stages.")
-    sub = parser.add_subparsers(dest="command", required=True)
+def register_analyze(sub) -> None:
     p = sub.add_parser("analyze", help="analyse a design file (or the built-in example)",
                        description="Analyse a design: operating point, gains, f_3dB, UGF, "
                                    "CMRR and its corner. With no DESIGN, the built-in example.")
@@ -46,6 +42,24 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print one JSON object (SI units)")
     p.add_argument("--csv", metavar="FILE", help="also write the curves to FILE as CSV")
     p.set_defaults(func=cmd_analyze)
+
+
+#: Subcommand registrars, one per face: each takes the subparsers object.
+#: Add a new subcommand as ``register(sub)`` in its own module and list it here.
+SUBCOMMANDS = [
+    "freqpair.cli:register_analyze",
+]
+
+
+def build_parser() -> argparse.ArgumentParser:
+    import importlib
+    parser = argparse.ArgumentParser(
+        prog="freqpair",
+        description="Exact small-signal frequency analysis of differential input stages.")
+    sub = parser.add_subparsers(dest="command", required=True)
+    for spec in SUBCOMMANDS:
+        module, func = spec.split(":")
+        getattr(importlib.import_module(module), func)(sub)
     return parser
 
 
