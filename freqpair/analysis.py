@@ -116,7 +116,8 @@ def analyze(design: Design) -> Analysis:
     primary = resp.primary
     a0 = complex(dc.get(primary)[0])
     ref = abs(complex(dc.adm[0])) if dc.adm is not None else abs(complex(dc.adm_se[0]))
-    first = dc.adm if stage.balanced else dc.adm_se
+    # DESIGN.md §3a: with a second stage, adm_db is the first stage's gain at o2
+    first = dc.adm if (stage.balanced and stage.final_node == "o2") else dc.adm_se
     adm_db_first = _gain_db(complex(first[0]), ref) if ref > 0 else None
     adm_db = _gain_db(a0, abs(a0)) if abs(a0) > 0 else None
     a_total_db = adm_db if primary == "a_total" else None
