@@ -309,7 +309,7 @@ def parse_measurement_text(text: str, kind: str, *, origin: str = "<text>",
                 fv = parse_si(cells[fi].strip(), field="", unit="hertz")
             except ValueError:
                 raise MeasurementError(f"{where}: frequency = {cells[fi].strip()!r}: "
-                                       "not a frequency") from None
+                                       "not a number or a frequency like '1.5 kHz'") from None
         else:
             fv *= f_scale
         if fv <= 0:
