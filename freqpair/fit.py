@@ -170,10 +170,16 @@ def parse_free_spec(spec: str) -> FreeValue:
     if not colon:
         raise FitError(f"free value {spec!r}: bounds are written LOW:HIGH, e.g. {key}=1p:10p")
     from quantiphy import Quantity
+
+    from .quantities import UNIT_ALIASES
+    units = set().union(*UNIT_ALIASES.values())
     bounds = []
     for text in (lo_text, hi_text):
         try:
-            value = float(Quantity(text.strip()))
+            q = Quantity(text.strip())
+            if q.units not in units:
+                raise ValueError(q.units)
+            value = float(q)
         except Exception:
             raise FitError(f"free value {spec!r}: bound {text.strip()!r} is not a number "
                            "with an SI prefix") from None
@@ -288,7 +294,8 @@ def fit_design(design: Design, measurement: Measurement, free, *, use_phase: boo
         inv_sv2 = np.where(tiny, np.inf, 1.0 / np.where(tiny, 1.0, sv) ** 2)
     # diag(V · diag(1/σ²) · Vᵀ), with 0·∞ taken as 0 (a direction the key does not move in)
     weights = vt.T ** 2
-    var_unit = np.array([np.sum(np.where(w > 1e-24, w * inv_sv2, 0.0)) for w in weights])
+    with np.errstate(invalid="ignore"):
+        var_unit = np.array([np.sum(np.where(w > 1e-24, w * inv_sv2, 0.0)) for w in weights])
     rel_sigma = np.sqrt(s2 * var_unit)
     rel_sigma_floor = np.sqrt(s_eff2 * var_unit)
 
