@@ -332,6 +332,9 @@ def fit_design(design: Design, measurement: Measurement, free, *, use_phase: boo
         if len(members) > 1:
             warnings.append("flat direction: " + ", ".join(members) +
                             " trade off against each other (only a combination is seen)")
+    if phase is not None and np.median(np.abs(r0[f.size:] / phase_weight)) > 150.0:
+        warnings.append("the measured phase is about 180° from the model's at the start: "
+                        "check the sign convention (DESIGN.md §2) or fit without phase")
     if not sol.success:
         warnings.append(f"optimiser did not converge: {sol.message}")
     nf = f.size

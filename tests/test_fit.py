@@ -247,3 +247,12 @@ def test_demo_measurement_is_labelled_synthetic_and_fits_back(tmp_path):
     result = fit_design(design, meas, ["tail.capacitance", "tail.resistance"])
     for v in result.values:   # oracle: the script's hidden values (exact model + noise)
         assert v.fitted == pytest.approx(HIDDEN[v.key], rel=0.03)
+
+
+def test_phase_of_opposite_sign_convention_is_warned(design):
+    f = np.logspace(3, 7, 20)
+    h = model_response(StageResponses(freqpair.build_stage(design)), "adm", f)
+    # oracle: DESIGN.md §2 sign convention; the inverted measurement is −A_dm exactly
+    meas = Measurement("adm", f, 20 * np.log10(np.abs(h)), np.degrees(np.angle(-h)))
+    result = fit_design(design, meas, ["load.capacitance"])
+    assert any("180°" in w for w in result.warnings)
