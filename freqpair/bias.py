@@ -83,6 +83,23 @@ def tail_headroom_needed(design) -> tuple[float, str]:
     raise BiasError(f"tail.type = {kind!r}: unknown")
 
 
+_TAIL_WORDS = {"mirror": "simple mirror", "degenerated": "degenerated", "cascode": "cascode"}
+
+
+def _check_mirror(dev, current: float) -> None:
+    """Mirror load devices in the active region / saturation (in balance both
+    sit at |V_CE| = |V_BE|, |V_DS| = |V_GS|)."""
+    v_ce = _diode_drop(dev, current)
+    if dev.is_bipolar and v_ce < SATURATION_VCE:
+        raise BiasError(f"load.device ({dev.type} mirror): saturated: V_CE = V_BE = "
+                        f"{v_ce:.3g} V < {SATURATION_VCE} V (I_C = {current:.3g} A)")
+    if not dev.is_bipolar:
+        vov = mos_overdrive(dev, current)
+        if v_ce < vov:   # cannot happen for V_th > 0; kept as a guard
+            raise BiasError(f"load.device ({dev.type} mirror): out of saturation: V_DS = "
+                            f"{v_ce:.3g} V < V_ov = {vov:.3g} V (I_D = {current:.3g} A)")
+
+
 def pair_operating_point(design) -> PairOperatingPoint:
     """Operating point of the (nominal) pair device, with headroom checks.
 
@@ -133,7 +150,12 @@ def pair_operating_point(design) -> PairOperatingPoint:
     have = pol * (v_common - rail_tail)
     if have < need:
         node = "V_E" if dev.is_bipolar else "V_S"
-        raise BiasError(f"tail: starved: {node} − rail = {have:.3g} V < {need:.3g} V needed "
+        who = "tail"
+        if design.tail.type in _TAIL_WORDS:
+            who = f"tail.device ({design.tail.device.type} {_TAIL_WORDS[design.tail.type]})"
+        raise BiasError(f"{who}: starved: {node} − rail = {have:.3g} V < {need:.3g} V needed "
                         f"({why}; tail node at {v_common:.3g} V, rail {rail_tail:.3g} V)")
+    if load.type == "mirror":
+        _check_mirror(load.device, i_dev)
     return PairOperatingPoint(dev.is_bipolar and "bipolar" or "mos", pol, ss, vg, v_common,
                               v_out, vce, vcb, vgs, vov)

@@ -50,6 +50,13 @@ def format_summary(result) -> str:
             f"C = {format_si(tail.capacitance, 'F')}"
             + (f" (+ pair's own {format_si(tail.pair_capacitance, 'F')})"
                if tail.pair_capacitance else ""))
+    for text in result.stage.tail_detail.get("summary", ()):
+        add(f"    {text}")
+    lss = result.stage.load_small_signal
+    if lss is not None:
+        cname = "C_pi" if lss.kind == "bipolar" else "C_gs"
+        add(f"  mirror load ({d.load.device.type}, each device): g_m = {format_si(lss.gm, 'S')}, "
+            f"r_o = {format_si(lss.ro, 'Ω')}, {cname} = {format_si(lss.c_in, 'F')}")
     add("")
     add("Gains at DC")
     gain_name = {"adm": "differential gain A_dm (balanced)",
