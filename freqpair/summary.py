@@ -63,22 +63,22 @@ def format_summary(result) -> str:
                  "adm_se": "differential gain A_dm,se (at o2)",
                  "a_total": "overall gain A_total (second-stage output)"}[result.primary]
     if result.primary == "a_total":
-        add(f"  first stage A_dm at o2:         {_db(result.adm_db_first)}  ({_vv(result.adm_db_first)})")
-    add(f"  {gain_name + ':':<34}{_db(result.adm_db)}  ({_vv(result.adm_db)})")
-    add(f"  common-mode gain A_cm,se:       {_db(result.acm_se_db)}  ({_vv(result.acm_se_db)})")
+        add(f"  {'first stage A_dm at o2:':<44}{_db(result.adm_db_first)}  ({_vv(result.adm_db_first)})")
+    add(f"  {gain_name + ':':<44}{_db(result.adm_db)}  ({_vv(result.adm_db)})")
+    add(f"  {'common-mode gain A_cm,se:':<44}{_db(result.acm_se_db)}  ({_vv(result.acm_se_db)})")
     add("")
     add("Bandwidth")
-    add(f"  −3 dB frequency f_3dB:          {format_si(result.f3db_hz, 'Hz')}")
-    add(f"  unity-gain frequency:           {format_si(result.ugf_hz, 'Hz')}")
+    add(f"  {'−3 dB frequency f_3dB:':<44}{format_si(result.f3db_hz, 'Hz')}")
+    add(f"  {'unity-gain frequency:':<44}{format_si(result.ugf_hz, 'Hz')}")
     add("")
     add("Common-mode rejection")
-    add(f"  CMRR single-ended (DC):         {_db(result.cmrr_se_db) if result.cmrr_se_db is not None else '∞ (common-mode gain is zero)'}")
+    add(f"  {'CMRR single-ended (DC):':<44}{_db(result.cmrr_se_db) if result.cmrr_se_db is not None else '∞ (common-mode gain is zero)'}")
     if result.stage.balanced:
         add(f"  CMRR balanced (DC):             "
             + (_db(result.cmrr_db) if result.cmrr_db is not None else "∞ (perfectly matched)"))
         if result.cmrr_textbook_db is not None:
-            add(f"  A_dm / A_cm-cm (textbook ratio): {_db(result.cmrr_textbook_db)}")
-    add(f"  CMRR corner (−3 dB):            {format_si(result.cmrr_corner_hz, 'Hz')}")
+            add(f"  {'A_dm / A_cm-cm (textbook ratio):':<44}{_db(result.cmrr_textbook_db)}")
+    add(f"  {'CMRR corner (−3 dB):':<44}{format_si(result.cmrr_corner_hz, 'Hz')}")
     for extra in getattr(result, "summary_sections", lambda: [])():
         add("")
         lines.extend(extra)
