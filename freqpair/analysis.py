@@ -83,7 +83,21 @@ class Analysis:
         }
         if self.a_total_db is not None:
             out["a_total_db"] = _fin(self.a_total_db)
+        if self.design.feedback is not None:
+            out.update(self._loop_json())
         return out
+
+    def loop(self):
+        """Loop results (:class:`freqpair.loop.LoopResult`), None without [feedback]."""
+        from .loop import loop_analysis
+        return loop_analysis(self)
+
+    def _loop_json(self) -> dict:
+        from .loop import LOOP_JSON_KEYS
+        result = self.loop()
+        if result is None:      # zero gain: no loop to speak of
+            return {key: None for key in LOOP_JSON_KEYS}
+        return result.to_json()
 
 
 def _gain_db(value: complex, reference: float) -> float | None:
@@ -116,7 +130,8 @@ def analyze(design: Design) -> Analysis:
     primary = resp.primary
     a0 = complex(dc.get(primary)[0])
     ref = abs(complex(dc.adm[0])) if dc.adm is not None else abs(complex(dc.adm_se[0]))
-    first = dc.adm if stage.balanced else dc.adm_se
+    # with a second stage, the first stage's gain is the one at o2 (DESIGN.md §3a)
+    first = dc.adm_se if primary == "a_total" else (dc.adm if stage.balanced else dc.adm_se)
     adm_db_first = _gain_db(complex(first[0]), ref) if ref > 0 else None
     adm_db = _gain_db(a0, abs(a0)) if abs(a0) > 0 else None
     a_total_db = adm_db if primary == "a_total" else None

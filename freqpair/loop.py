@@ -39,6 +39,10 @@ __all__ = ["LoopResult", "LoopCurves", "LoopModel", "loop_analysis", "loop_curve
 
 #: Relative distance below which a pole and a zero cancel (unexcited/unseen modes).
 CANCEL_RTOL = 1e-7
+#: JSON keys added by a design with [feedback] (DESIGN.md §4 and issue 5).
+LOOP_JSON_KEYS = ("phase_margin_deg", "gain_margin_db", "crossover_hz", "phase_crossover_hz",
+                  "dc_loop_gain_db", "closed_loop_f3db_hz", "peaking_db", "closed_loop_stable",
+                  "overshoot_pct", "settling_time_s")
 #: Settling band (fraction of the final value).
 SETTLE_BAND = 0.01
 
@@ -95,7 +99,7 @@ class LoopResult:
     def to_json(self) -> dict:
         """The loop keys of the JSON contract (DESIGN.md §4; None → null)."""
         fin = (lambda v: None if v is None or not math.isfinite(v) else float(v))
-        return {
+        out = {
             "phase_margin_deg": fin(self.phase_margin_deg),
             "gain_margin_db": fin(self.gain_margin_db),
             "crossover_hz": fin(self.crossover_hz),
@@ -107,6 +111,8 @@ class LoopResult:
             "overshoot_pct": fin(self.overshoot_pct),
             "settling_time_s": fin(self.settling_time_s),
         }
+        assert tuple(out) == LOOP_JSON_KEYS
+        return out
 
 
 @dataclass(frozen=True)
@@ -322,7 +328,7 @@ def _overshoot_and_settling(p, c):
         res = minimize_scalar(lambda x: -shape([x])[0], bounds=(t[k - 1], t[k + 1]),
                               method="bounded", options={"xatol": 1e-12 * t[k + 1]})
         peak = max(peak, -res.fun)
-    overshoot = max(0.0, peak - 1.0) * 100.0
+    overshoot = float(max(0.0, peak - 1.0) * 100.0)
     err = np.abs(y - 1.0) - SETTLE_BAND
     out = np.nonzero(err > 0)[0]
     if out.size == 0:
@@ -331,7 +337,7 @@ def _overshoot_and_settling(p, c):
     if j == t.size - 1:
         return overshoot, None
     g = lambda x: abs(shape([x])[0] - 1.0) - SETTLE_BAND            # noqa: E731
-    return overshoot, brentq(g, t[j], t[j + 1], xtol=1e-15, rtol=1e-13)
+    return overshoot, float(brentq(g, t[j], t[j + 1], xtol=1e-15, rtol=1e-13))
 
 
 def loop_model(analysis) -> LoopModel | None:
@@ -382,7 +388,7 @@ def _peaking_db(model, grid, values_db, dc_db) -> float:
                               bounds=(math.log10(grid[k - 1]), math.log10(grid[k + 1])),
                               method="bounded", options={"xatol": 1e-10})
         best = max(best, -res.fun)
-    return max(0.0, best - dc_db)
+    return float(max(0.0, best - dc_db))
 
 
 def loop_curves(analysis, f_hz=None) -> LoopCurves | None:
