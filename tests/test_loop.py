@@ -171,3 +171,16 @@ def test_cli_analyze_shows_loop_in_text_and_json():
     # oracle: same numbers as the library (one computation, two faces; common practice)
     r = loop_analysis(freqpair.analyze(freqpair.load_design(EXAMPLE)))
     assert data["phase_margin_deg"] == pytest.approx(r.phase_margin_deg, rel=1e-12)
+
+
+@pytest.mark.parametrize("example, key, at_least_deg", [
+    ("two_stage_miller_loop.toml", "second_stage.load_capacitance", 20.0),
+    ("ota_tail_cap_loop.toml", "tail.capacitance", 3.0),
+])
+def test_example_capacitances_cost_phase_margin(example, key, at_least_deg):
+    design = freqpair.load_design(ROOT / "examples" / example)
+    with_c = loop_analysis(freqpair.analyze(design)).phase_margin_deg
+    without = loop_analysis(freqpair.analyze(replace_value(design, key, 0))).phase_margin_deg
+    # oracle: an added capacitance adds a pole (or lowers one) in the loop and
+    # so lowers the phase margin (control textbook, common practice)
+    assert without - with_c > at_least_deg
