@@ -83,7 +83,21 @@ class Analysis:
         }
         if self.a_total_db is not None:
             out["a_total_db"] = _fin(self.a_total_db)
+        if self.design.feedback is not None:
+            out.update(self._loop_json())
         return out
+
+    def loop(self):
+        """Loop results (:class:`freqpair.loop.LoopResult`), None without [feedback]."""
+        from .loop import loop_analysis
+        return loop_analysis(self)
+
+    def _loop_json(self) -> dict:
+        from .loop import LOOP_JSON_KEYS
+        result = self.loop()
+        if result is None:      # zero gain: no loop to speak of
+            return {key: None for key in LOOP_JSON_KEYS}
+        return result.to_json()
 
 
 def _gain_db(value: complex, reference: float) -> float | None:

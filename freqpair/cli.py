@@ -49,6 +49,7 @@ def register_analyze(sub) -> None:
 SUBCOMMANDS = [
     "freqpair.cli:register_analyze",
     "freqpair.cli_fit:register",
+    "freqpair.cli_compensate:register",
 ]
 
 

@@ -20,6 +20,33 @@ def _vv(db_value):
     return "—" if db_value is None else format_si(10 ** (db_value / 20), "V/V")
 
 
+def _loop_lines(result) -> list[str]:
+    """The feedback-loop section (only for designs with [feedback])."""
+    from .loop import loop_analysis
+    r = loop_analysis(result)
+    out = [f"Feedback loop (β_f = {result.design.feedback.factor:g})"]
+    if r is None:
+        out.append("  no loop: the amplifier's DC gain is zero")
+        return out
+    deg = (lambda v, none: none if v is None else f"{v:.2f}°")
+    out.append(f"  DC loop gain T(0):              {_db(r.dc_loop_gain_db)}")
+    out.append(f"  phase margin:                   {deg(r.phase_margin_deg, '∞ (|T| stays below 1)')}"
+               + (f" at {format_si(r.crossover_hz, 'Hz')}" if r.crossover_hz else ""))
+    out.append(f"  gain margin:                    "
+               + (_db(r.gain_margin_db) + f" at {format_si(r.phase_crossover_hz, 'Hz')}"
+                  if r.gain_margin_db is not None else "∞ (phase never reaches −180°)"))
+    out.append(f"  closed-loop DC gain:            {r.closed_loop_dc_gain:.6g} V/V")
+    out.append(f"  closed-loop −3 dB frequency:    {format_si(r.closed_loop_f3db_hz, 'Hz')}")
+    out.append(f"  closed-loop peaking:            {_db(r.peaking_db)}")
+    if not r.closed_loop_stable:
+        out.append("  step response:                  UNSTABLE (a closed-loop pole in the "
+                   "right half plane)")
+    else:
+        out.append(f"  step overshoot:                 {r.overshoot_pct:.2f} %")
+        out.append(f"  1 % settling time:              {format_si(r.settling_time_s, 's')}")
+    return out
+
+
 def format_summary(result) -> str:
     """A readable multi-line summary: operating point, gains, bandwidth, CMRR."""
     d = result.design
@@ -74,11 +101,14 @@ def format_summary(result) -> str:
     add("Common-mode rejection")
     add(f"  {'CMRR single-ended (DC):':<44}{_db(result.cmrr_se_db) if result.cmrr_se_db is not None else '∞ (common-mode gain is zero)'}")
     if result.stage.balanced:
-        add(f"  CMRR balanced (DC):             "
+        add(f"  {'CMRR balanced (DC):':<44}"
             + (_db(result.cmrr_db) if result.cmrr_db is not None else "∞ (perfectly matched)"))
         if result.cmrr_textbook_db is not None:
             add(f"  {'A_dm / A_cm-cm (textbook ratio):':<44}{_db(result.cmrr_textbook_db)}")
     add(f"  {'CMRR corner (−3 dB):':<44}{format_si(result.cmrr_corner_hz, 'Hz')}")
+    if d.feedback is not None:
+        add("")
+        lines.extend(_loop_lines(result))
     for extra in getattr(result, "summary_sections", lambda: [])():
         add("")
         lines.extend(extra)
