@@ -48,6 +48,8 @@ def register_analyze(sub) -> None:
 #: Add a new subcommand as ``register(sub)`` in its own module and list it here.
 SUBCOMMANDS = [
     "freqpair.cli:register_analyze",
+    "freqpair.cli_sweep:register",          # sweep, target
+    "freqpair.cli_montecarlo:register",
 ]
 
 
