@@ -223,8 +223,9 @@ class _Engine:
         below = live & (d[:, 0] <= 0)
         cross = (d[:, :-1] > 0) & (d[:, 1:] <= 0)
         has = live & ~below & cross.any(axis=1)
-        idx = np.argmax(cross, axis=1)
-        lo[has], hi[has] = self.f_hz[idx[has]], self.f_hz[idx[has] + 1]
+        if cross.shape[1]:
+            idx = np.argmax(cross, axis=1)
+            lo[has], hi[has] = self.f_hz[idx[has]], self.f_hz[idx[has] + 1]
         for ext, mask in ((self.low_ext, below), (self.high_ext, live & ~below & ~has)):
             sel = np.nonzero(mask)[0]
             if sel.size == 0:
