@@ -50,6 +50,8 @@ SUBCOMMANDS = [
     "freqpair.cli:register_analyze",
     "freqpair.cli_fit:register",
     "freqpair.cli_compensate:register",
+    "freqpair.cli_sweep:register",          # sweep, target
+    "freqpair.cli_montecarlo:register",
 ]
 
 
