@@ -34,6 +34,9 @@ ORIGIN_REL_TOL = 1e-12
 #: Imaginary parts below this fraction of the magnitude are rounding (the root is real).
 REAL_REL_TOL = 1e-10
 
+#: A kept pole and zero closer than this (relative) are flagged as a doublet.
+DOUBLET_REL = 0.05
+
 RESPONSE_LABELS = {
     "adm": "A_dm (balanced)",
     "adm_se": "A_dm,se (at o2)",
@@ -368,8 +371,14 @@ def pole_zero_table(analysis, name: str | None = None, top: int = 3,
             mag = abs(r)
             q = None if r.imag == 0 or r.real == 0 else mag / (2 * abs(r.real))
             contributors = rs.top(top, group_sides=group_sides) if rs is not None else []
+            note = _note(r, kind)
+            other = zpk.zeros_rad_s if kind == "pole" else zpk.poles_rad_s
+            if note is None and other.size and mag > 0:
+                gap = float(np.min(np.abs(other - r))) / mag
+                if gap < DOUBLET_REL:
+                    note = f"doublet (a {'zero' if kind == 'pole' else 'pole'} {100 * gap:.2g} % away)"
             rows.append(PoleZeroRow(kind, mag / (2 * math.pi), r.real / (2 * math.pi),
-                                    r.imag / (2 * math.pi), q, contributors, _note(r, kind)))
+                                    r.imag / (2 * math.pi), q, contributors, note))
     return rows
 
 
