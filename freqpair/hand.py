@@ -161,6 +161,9 @@ def hand_table(analysis) -> list[HandRow]:
     out_note = None
     if f_in is not None and f_out is not None and 0.1 < f_in / f_out < 10:
         out_note = "input and output poles within 10×: the Miller split does not hold"
+    elif f_in is not None and f_out is not None and f_in < f_out:
+        out_note = ("the input pole dominates: above it the Miller gain is not constant, so "
+                    "this estimate ignores pole splitting")
     elif second:
         out_note = "second stage present: its Miller capacitor is not in this formula"
     rows.append(_row("output_pole_hz", "output pole",
