@@ -133,7 +133,7 @@ class PoleZeroRow:
         share = d ln|s| / d ln g for a conductance or g_m, and −d ln|s| / d ln C for
         a capacitor (each kind sums to 1 over the network).
     note : str or None
-        "at the origin", "right half-plane", or None.
+        "at the origin", "right half-plane", "doublet (...)", or None.
     """
 
     kind: str
