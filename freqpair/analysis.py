@@ -83,6 +83,10 @@ class Analysis:
         }
         if self.a_total_db is not None:
             out["a_total_db"] = _fin(self.a_total_db)
+        from .hand import hand_json
+        from .poles import pole_zero_json
+        out.update(pole_zero_json(self))     # poles_hz, zeros_hz of the primary gain
+        out["hand"] = hand_json(self)
         if self.design.feedback is not None:
             out.update(self._loop_json())
         return out

@@ -362,3 +362,77 @@ def finite_generalized_eigenvalues(G, C, s0: float, tol: float = 1e-12) -> np.nd
     finite = ok & (np.abs(beta) > tol * np.abs(alpha))
     lam = alpha[finite] / beta[finite]
     return np.sort_complex(lam * s0)
+
+
+# ------------------------------------------------------------------ per-element stamps
+# (additive: used by sensitivity analysis; the stamping above is unchanged)
+
+def _element_slot(net: Network, index: int) -> tuple[str, int]:
+    """Which stamp list holds element ``index`` of ``net.elements``, and where."""
+    if not 0 <= index < len(net.elements):
+        raise NetworkError(f"element index {index!r} is out of range "
+                           f"(0 … {len(net.elements) - 1})")
+    kind = net.elements[index][0]
+    pos = sum(1 for e in net.elements[:index] if e[0] == kind)
+    return {"G": "_g", "C": "_c", "VCCS": "_vccs"}[kind], pos
+
+
+def element_stamp(net: Network, index: int) -> tuple[np.ndarray, np.ndarray]:
+    """Derivatives ``(∂G/∂x, ∂C/∂x)`` of the network matrices with respect to the
+    value x of element ``index`` (x in S for conductances and g_m, F for capacitors).
+
+    Parameters
+    ----------
+    net : Network
+    index : int
+        Position in ``net.elements``.
+
+    Returns
+    -------
+    dG, dC : ndarray, shape (n, n)
+    """
+    name, pos = _element_slot(net, index)
+    n = net.size
+    dG = np.zeros((n, n))
+    dC = np.zeros((n, n))
+    if name == "_vccs":
+        o1, o2, cp, cn, _ = net._vccs[pos]
+        for row, sign_r in ((o1, 1.0), (o2, -1.0)):
+            if row < 0:
+                continue
+            if cp >= 0:
+                dG[row, cp] += sign_r
+            if cn >= 0:
+                dG[row, cn] -= sign_r
+        return dG, dC
+    a, b, _ = getattr(net, name)[pos]
+    M = dG if name == "_g" else dC
+    if a >= 0:
+        M[a, a] += 1.0
+    if b >= 0:
+        M[b, b] += 1.0
+    if a >= 0 and b >= 0:
+        M[a, b] -= 1.0
+        M[b, a] -= 1.0
+    return dG, dC
+
+
+def with_element_scaled(net: Network, index: int, factor: float) -> Network:
+    """A copy of ``net`` with the value of element ``index`` multiplied by ``factor``
+    (e.g. for finite-difference checks and what-if studies)."""
+    if not (math.isfinite(factor) and factor > 0):
+        raise NetworkError(f"scale factor {factor!r} is not a positive finite number")
+    name, pos = _element_slot(net, index)
+    out = Network()
+    out._nodes = dict(net._nodes)
+    out._g = list(net._g)
+    out._c = list(net._c)
+    out._vccs = list(net._vccs)
+    out._sources = list(net._sources)
+    out.elements = list(net.elements)
+    entries = getattr(out, name)
+    entry = entries[pos]
+    entries[pos] = entry[:-1] + (entry[-1] * factor,)
+    kind, label, nodes, value = out.elements[index]
+    out.elements[index] = (kind, label, nodes, value * factor)
+    return out

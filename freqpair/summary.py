@@ -106,6 +106,8 @@ def format_summary(result) -> str:
         if result.cmrr_textbook_db is not None:
             add(f"  {'A_dm / A_cm-cm (textbook ratio):':<44}{_db(result.cmrr_textbook_db)}")
     add(f"  {'CMRR corner (−3 dB):':<44}{format_si(result.cmrr_corner_hz, 'Hz')}")
+    add("")
+    lines.extend(pole_zero_section(result))
     if d.feedback is not None:
         add("")
         lines.extend(_loop_lines(result))
@@ -115,3 +117,40 @@ def format_summary(result) -> str:
     add("")
     add(CAUTION)
     return "\n".join(lines)
+
+
+def pole_zero_section(result, top: int = 3) -> list[str]:
+    """Poles and zeros of the primary gain (with what sets each) and the
+    hand-versus-exact table."""
+    from .hand import hand_table
+    from .poles import RESPONSE_LABELS, pole_zero_table, response_zpk
+    zpk = response_zpk(result)
+    out = [f"Poles and zeros of {RESPONSE_LABELS[zpk.name]}  (s/2π; pairs as re ± j·im)"]
+    if zpk.identically_zero:
+        out.append("  (the gain is zero at every frequency)")
+    for row in pole_zero_table(result, top=top):
+        where = format_si(row.re_hz, "Hz")
+        if row.is_pair:
+            where += f" ± j{format_si(row.im_hz, 'Hz')}  |s|/2π = {format_si(row.f_hz, 'Hz')}, Q = {row.q:.3g}"
+        who = ", ".join(f"{label} {100 * share:.0f} %" for label, share in row.contributors)
+        note = f"  [{row.note}]" if row.note else ""
+        out.append(f"  {row.kind:<4}  {where}{note}")
+        if who:
+            out.append(f"        set by: {who}")
+    if zpk.cancelled_rad_s:
+        out.append(f"  cancelled pole-zero pairs (modes this gain does not see): "
+                   + ", ".join(format_si(abs(p) / (2 * math.pi), "Hz")
+                               for p, _ in zpk.cancelled_rad_s if p.imag >= 0))
+    out.append("")
+    out.append("Hand analysis beside the exact answer")
+    out.append(f"  {'quantity':<44}{'exact':>14}{'hand':>14}{'error':>10}")
+    for r in hand_table(result):
+        unit = r.unit
+        ex = "—" if r.exact is None else format_si(r.exact, unit)
+        ap = "—" if r.approx is None else format_si(r.approx, unit)
+        er = "—" if r.error_pct is None else f"{r.error_pct:+.1f} %"
+        out.append(f"  {r.label:<44}{ex:>14}{ap:>14}{er:>10}")
+        out.append(f"      method: {r.method}")
+        if r.note:
+            out.append(f"      note: {r.note}")
+    return out
