@@ -55,11 +55,13 @@ def curve_columns(analysis, names=None, f_hz=None) -> dict[str, np.ndarray]:
         v = r.get(n)
         if v is None or not np.any(np.abs(v) > 0):
             continue
-        mag = db(v)
+        from .export import zero_to_rounding
+        zero = zero_to_rounding(analysis, v)
+        mag = np.where(zero, np.nan, db(v))
         if not np.any(np.isfinite(mag)):
             continue
         cols[f"{n}_db"] = _finite(mag)
-        cols[f"{n}_deg"] = _finite(np.degrees(np.unwrap(np.angle(v))))
+        cols[f"{n}_deg"] = _finite(np.where(zero, np.nan, np.degrees(np.unwrap(np.angle(v)))))
     return cols
 
 
