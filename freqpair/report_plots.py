@@ -210,5 +210,10 @@ def overlay_figure(analyses, quantity: str = "primary", labels=None, f_hz=None):
                 continue
             y = cols[key]
         _line(fig, cols["frequency_hz"], y, colour, f"{i + 1}: {label}")
+    if not fig.renderers:
+        from bokeh.models import Label
+        fig.add_layout(Label(x=10, y=10, x_units="screen", y_units="screen",
+                             text="infinite for every design (zero common-mode gain)"))
+        fig.scatter([float(f_hz[0])], [0.0], alpha=0)   # keeps the axes drawable
     _legend(fig)
     return fig

@@ -228,3 +228,47 @@ def test_strict_html_check_rejects_broken_pages(bad):
     # oracle: HTML5 syntax rules (common practice) — the checker used above can fail
     with pytest.raises(AssertionError):
         check_html(bad)
+
+
+def test_missing_hand_module_shows_a_plain_line(monkeypatch, builtin_design):
+    # oracle: house rule — a part absent from the build is a plain line, not a crash
+    monkeypatch.setitem(sys.modules, "freqpair.hand", None)   # import now fails
+    html = report_html(freqpair.analyze(builtin_design))
+    assert "Hand-vs-exact table: not available in this build." in html
+
+
+def test_report_shows_hand_rows_when_the_hand_module_exists(builtin_design):
+    # oracle: freqpair.hand's own table — the report shows each of its labels
+    hand = pytest.importorskip("freqpair.hand")
+    a = freqpair.analyze(builtin_design)
+    html = report_html(a)
+    from html import escape
+    for row in hand.hand_table(a):
+        assert escape(row.label) in html
+
+
+def test_report_shows_loop_margins_as_the_json_gives_them(builtin_design):
+    # oracle: the JSON contract (DESIGN.md §4) loop keys with [feedback]
+    pytest.importorskip("freqpair.loop")
+    d = freqpair.replace_value(builtin_design, "feedback.factor", 0.05)
+    a = freqpair.analyze(d)
+    data = a.to_json()
+    html = report_html(a)
+    for key in ("phase_margin_deg", "gain_margin_db", "crossover_hz"):
+        if key in data:
+            assert format_metric(key, data[key]) in html
+
+
+def test_plot_helpers_return_restylable_bokeh_figures(builtin_design):
+    # oracle: Bokeh's own model API — a returned figure accepts new styling
+    from bokeh.plotting import figure
+    from freqpair.report_plots import bode_figures, cmrr_figure, overlay_figure
+    a = freqpair.analyze(builtin_design)
+    mag, phase = bode_figures(a)
+    cm = cmrr_figure(a)
+    ov = overlay_figure([a, a], "cmrr_se")
+    for fig in (mag, phase, cm, ov):
+        assert isinstance(fig, figure)
+    mag.title.text = "mine"
+    mag.line([1, 10], [0, 1], line_color="black")
+    assert mag.title.text == "mine" and phase.x_range is mag.x_range
