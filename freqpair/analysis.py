@@ -64,6 +64,16 @@ class Analysis:
         grid = grid or FrequencyGrid.from_design(self.design)
         return self.responses.at(grid.f_hz)
 
+    def __str__(self) -> str:
+        """The terminal summary (:func:`freqpair.summary.format_summary`)."""
+        from .summary import format_summary
+        return format_summary(self)
+
+    def _repr_html_(self) -> str:
+        """A compact HTML table of the metrics, for notebooks."""
+        from .report import compact_html
+        return compact_html(self)
+
     def to_json(self) -> dict:
         """The DESIGN.md §4 object (SI units; None for infinite/undefined)."""
         tail = self.tail.to_json() if self.tail is not None else {"resistance": None,

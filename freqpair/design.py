@@ -375,6 +375,15 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent or ".")
     try:
+        # mkstemp creates 0600; give the file the mode a plain open() would
+        # (the old file's mode, else 0666 less the umask)
+        try:
+            mode = os.stat(path).st_mode & 0o777
+        except OSError:
+            umask = os.umask(0o022)
+            os.umask(umask)
+            mode = 0o666 & ~umask
+        os.chmod(tmp, mode)
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()
