@@ -33,7 +33,7 @@ def _rebuild_error(a, zpk, name):
     floor = 1e-12 * abs(complex(a.dc.get(a.primary)[0]))
     rebuilt = zpk.evaluate(F_CHECK)
     gap = np.maximum(np.abs(rebuilt - direct) - floor, 0.0)
-    return float(np.max(gap / np.abs(direct)))
+    return float(np.max(gap / np.maximum(np.abs(direct), floor)))
 
 
 def test_rebuilt_response_is_right_where_the_gain_is_tiny():
