@@ -18,6 +18,7 @@ eigenvalues of the (frequency-scaled) descriptor pencil.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -275,7 +276,9 @@ class FrequencySolver:
     def dc(self) -> np.ndarray:
         """``H(0) = L G⁻¹ B`` by a direct solve, shape (p, m)."""
         try:
-            lu = sla.lu_factor(self.G, check_finite=True)
+            with warnings.catch_warnings():   # singular G is reported below, by name
+                warnings.simplefilter("ignore", sla.LinAlgWarning)
+                lu = sla.lu_factor(self.G, check_finite=True)
         except (ValueError, np.linalg.LinAlgError) as exc:
             raise NetworkError(f"cannot solve the network at DC ({exc})") from None
         if np.any(np.abs(np.diag(lu[0])) <= 1e-14 * np.abs(self.G).max()):
