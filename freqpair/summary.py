@@ -20,6 +20,14 @@ def _vv(db_value):
     return "—" if db_value is None else format_si(10 ** (db_value / 20), "V/V")
 
 
+_LABEL_WIDTH = 45
+
+
+def _row(label: str, value: str) -> str:
+    """One aligned 'label: value' line (labels padded to one column)."""
+    return f"  {label + ':':<{_LABEL_WIDTH}} {value}"
+
+
 def format_summary(result) -> str:
     """A readable multi-line summary: operating point, gains, bandwidth, CMRR."""
     d = result.design
@@ -56,22 +64,27 @@ def format_summary(result) -> str:
                  "adm_se": "differential gain A_dm,se (at o2)",
                  "a_total": "overall gain A_total (second-stage output)"}[result.primary]
     if result.primary == "a_total":
-        add(f"  first stage A_dm at o2:         {_db(result.adm_db_first)}  ({_vv(result.adm_db_first)})")
-    add(f"  {gain_name + ':':<34}{_db(result.adm_db)}  ({_vv(result.adm_db)})")
-    add(f"  common-mode gain A_cm,se:       {_db(result.acm_se_db)}  ({_vv(result.acm_se_db)})")
+        add(_row("first stage A_dm at o2", f"{_db(result.adm_db_first)}  ({_vv(result.adm_db_first)})"))
+    add(_row(gain_name, f"{_db(result.adm_db)}  ({_vv(result.adm_db)})"))
+    add(_row("common-mode gain A_cm,se", f"{_db(result.acm_se_db)}  ({_vv(result.acm_se_db)})"
+             if result.acm_se_db is not None else "0 V/V (zero to rounding)"))
     add("")
     add("Bandwidth")
-    add(f"  −3 dB frequency f_3dB:          {format_si(result.f3db_hz, 'Hz')}")
-    add(f"  unity-gain frequency:           {format_si(result.ugf_hz, 'Hz')}")
+    add(_row("−3 dB frequency f_3dB", format_si(result.f3db_hz, 'Hz')))
+    add(_row("unity-gain frequency", format_si(result.ugf_hz, 'Hz')))
     add("")
     add("Common-mode rejection")
-    add(f"  CMRR single-ended (DC):         {_db(result.cmrr_se_db) if result.cmrr_se_db is not None else '∞ (common-mode gain is zero)'}")
+    add(_row("CMRR single-ended (DC)", _db(result.cmrr_se_db) if result.cmrr_se_db is not None
+             else "∞ (common-mode gain is zero)"))
     if result.stage.balanced:
-        add(f"  CMRR balanced (DC):             "
-            + (_db(result.cmrr_db) if result.cmrr_db is not None else "∞ (perfectly matched)"))
+        add(_row("CMRR balanced (DC)", _db(result.cmrr_db) if result.cmrr_db is not None
+                 else "∞ (perfectly matched)"))
         if result.cmrr_textbook_db is not None:
-            add(f"  A_dm / A_cm-cm (textbook ratio): {_db(result.cmrr_textbook_db)}")
-    add(f"  CMRR corner (−3 dB):            {format_si(result.cmrr_corner_hz, 'Hz')}")
+            add(_row("A_dm / A_cm-cm (textbook ratio)", _db(result.cmrr_textbook_db)))
+    add(_row("CMRR corner (−3 dB)", format_si(result.cmrr_corner_hz, 'Hz')
+             if result.cmrr_corner_hz is not None
+             else "— (CMRR is infinite)" if result.cmrr_se_db is None
+             else "— (CMRR does not fall 3 dB)"))
     for extra in getattr(result, "summary_sections", lambda: [])():
         add("")
         lines.extend(extra)
