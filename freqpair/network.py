@@ -18,6 +18,7 @@ eigenvalues of the (frequency-scaled) descriptor pencil.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -28,6 +29,10 @@ from .errors import NetworkError
 __all__ = ["Network", "FrequencySolver", "GROUND"]
 
 GROUND = "gnd"
+
+#: Up to this many frequencies, :meth:`FrequencySolver.response` solves each
+#: point directly (cheaper than setting up the vectorised back-substitution).
+DIRECT_MAX_POINTS = 4
 
 
 class Network:
@@ -226,6 +231,8 @@ class _Reduced:
     Bt: np.ndarray
     Lt: np.ndarray
     s0: float
+    Qh: np.ndarray
+    Z: np.ndarray
 
 
 class FrequencySolver:
@@ -269,19 +276,24 @@ class FrequencySolver:
             if np.any((diag_a <= 1e-14 * scale) & (diag_b <= 1e-14 * scale)):
                 raise NetworkError("the network is singular at every frequency "
                                    "(a node has no defined voltage)")
-            self._red = _Reduced(AA, BB, Q.conj().T @ self.B, self.L @ Z, s0)
+            Qh = Q.conj().T
+            self._red = _Reduced(AA, BB, Qh @ self.B, self.L @ Z, s0, Qh, Z)
         return self._red
 
     def dc(self) -> np.ndarray:
         """``H(0) = L G⁻¹ B`` by a direct solve, shape (p, m)."""
         try:
-            lu = sla.lu_factor(self.G, check_finite=True)
+            with warnings.catch_warnings():   # singular G is reported below, by name
+                warnings.simplefilter("ignore", sla.LinAlgWarning)
+                lu = sla.lu_factor(self.G, check_finite=True)
         except (ValueError, np.linalg.LinAlgError) as exc:
             raise NetworkError(f"cannot solve the network at DC ({exc})") from None
         if np.any(np.abs(np.diag(lu[0])) <= 1e-14 * np.abs(self.G).max()):
             raise NetworkError("the network has no DC solution (a node has no DC path; "
                                "e.g. a node connected only through capacitors)")
-        return self.L @ sla.lu_solve(lu, self.B)
+        # np.linalg.solve, not lu_solve: the same LU, but scipy's lu_solve was measured
+        # at 5–9 ms (vs 0.03 ms) for an 11-node G when BLAS threads compete for cores
+        return self.L @ np.linalg.solve(self.G, self.B)
 
     def response(self, s: np.ndarray) -> np.ndarray:
         """Transfer matrix at complex frequencies ``s`` [rad/s].
@@ -295,20 +307,46 @@ class FrequencySolver:
         ndarray of complex, shape (n_f, p, m)
         """
         s = np.atleast_1d(np.asarray(s, dtype=complex))
+        if s.size <= DIRECT_MAX_POINTS:
+            return self._response_few(s)
         red = self._reduce()
         sp = s / red.s0
+        y = self._back_substitute(red, sp, np.broadcast_to(red.Bt, (s.size,) + red.Bt.shape))
+        # one step of iterative refinement against the original G + sC: the QZ
+        # solve is accurate relative to the whole pencil, and a response far below
+        # the network's largest gains (deep in the stop band, or a common-mode
+        # gain) lost up to 1e-4 relative without it; with it, it matches LU
+        # (stacked matmul, not einsum: einsum was measured 7x slower here)
+        x = red.Z @ y
+        residual = self.B - self.G @ x - s[:, None, None] * (self.C @ x)
+        dy = self._back_substitute(red, sp, red.Qh @ residual)
+        out = self.L @ x + red.Lt @ dy
+        if not np.all(np.isfinite(out)):
+            bad = s[~np.all(np.isfinite(out), axis=(1, 2))][0]
+            raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")
+        return out
+
+    def _back_substitute(self, red: "_Reduced", sp: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+        """Solve (AA + sp·BB)·y = rhs for every frequency: n vectorised steps."""
         n = self.n
-        m = red.Bt.shape[1]
-        y = np.empty((s.size, n, m), dtype=complex)
+        y = np.empty(rhs.shape, dtype=complex)
         AA, BB = red.AA, red.BB
         for i in range(n - 1, -1, -1):
-            rhs = np.broadcast_to(red.Bt[i], (s.size, m))
+            r = rhs[:, i, :]
             if i < n - 1:
                 row = AA[i, i + 1:][None, :] + sp[:, None] * BB[i, i + 1:][None, :]
-                rhs = rhs - np.einsum("fj,fjm->fm", row, y[:, i + 1:, :])
+                r = r - (row[:, None, :] @ y[:, i + 1:, :])[:, 0, :]
             diag = AA[i, i] + sp * BB[i, i]
-            y[:, i, :] = rhs / diag[:, None]
-        out = np.einsum("pn,fnm->fpm", red.Lt, y)
+            y[:, i, :] = r / diag[:, None]
+        return y
+
+    def _response_few(self, s: np.ndarray) -> np.ndarray:
+        """A handful of frequencies (root-finding steps): direct LU per point is
+        cheaper than the back-substitution sweep and at least as accurate."""
+        try:
+            out = self.response_direct(s)
+        except np.linalg.LinAlgError:
+            out = np.full((s.size, self.L.shape[0], self.B.shape[1]), np.nan, dtype=complex)
         if not np.all(np.isfinite(out)):
             bad = s[~np.all(np.isfinite(out), axis=(1, 2))][0]
             raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")

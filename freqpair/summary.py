@@ -20,6 +20,14 @@ def _vv(db_value):
     return "—" if db_value is None else format_si(10 ** (db_value / 20), "V/V")
 
 
+_LABEL_WIDTH = 45
+
+
+def _row(label: str, value: str) -> str:
+    """One aligned 'label: value' line (labels padded to one column)."""
+    return f"  {label + ':':<{_LABEL_WIDTH}} {value}"
+
+
 def _loop_lines(result) -> list[str]:
     """The feedback-loop section (only for designs with [feedback])."""
     from .loop import loop_analysis
@@ -29,21 +37,21 @@ def _loop_lines(result) -> list[str]:
         out.append("  no loop: the amplifier's DC gain is zero")
         return out
     deg = (lambda v, none: none if v is None else f"{v:.2f}°")
-    out.append(f"  DC loop gain T(0):              {_db(r.dc_loop_gain_db)}")
-    out.append(f"  phase margin:                   {deg(r.phase_margin_deg, '∞ (|T| stays below 1)')}"
+    out.append(f"  {'DC loop gain T(0):':<45} {_db(r.dc_loop_gain_db)}")
+    out.append(f"  {'phase margin:':<45} {deg(r.phase_margin_deg, '∞ (|T| stays below 1)')}"
                + (f" at {format_si(r.crossover_hz, 'Hz')}" if r.crossover_hz else ""))
-    out.append(f"  gain margin:                    "
+    out.append(f"  {'gain margin:':<45} "
                + (_db(r.gain_margin_db) + f" at {format_si(r.phase_crossover_hz, 'Hz')}"
                   if r.gain_margin_db is not None else "∞ (phase never reaches −180°)"))
-    out.append(f"  closed-loop DC gain:            {r.closed_loop_dc_gain:.6g} V/V")
-    out.append(f"  closed-loop −3 dB frequency:    {format_si(r.closed_loop_f3db_hz, 'Hz')}")
-    out.append(f"  closed-loop peaking:            {_db(r.peaking_db)}")
+    out.append(f"  {'closed-loop DC gain:':<45} {r.closed_loop_dc_gain:.6g} V/V")
+    out.append(f"  {'closed-loop −3 dB frequency:':<45} {format_si(r.closed_loop_f3db_hz, 'Hz')}")
+    out.append(f"  {'closed-loop peaking:':<45} {_db(r.peaking_db)}")
     if not r.closed_loop_stable:
-        out.append("  step response:                  UNSTABLE (a closed-loop pole in the "
+        out.append(f"  {'step response:':<45} UNSTABLE (a closed-loop pole in the "
                    "right half plane)")
     else:
-        out.append(f"  step overshoot:                 {r.overshoot_pct:.2f} %")
-        out.append(f"  1 % settling time:              {format_si(r.settling_time_s, 's')}")
+        out.append(f"  {'step overshoot:':<45} {r.overshoot_pct:.2f} %")
+        out.append(f"  {'1 % settling time:':<45} {format_si(r.settling_time_s, 's')}")
     return out
 
 
@@ -90,22 +98,27 @@ def format_summary(result) -> str:
                  "adm_se": "differential gain A_dm,se (at o2)",
                  "a_total": "overall gain A_total (second-stage output)"}[result.primary]
     if result.primary == "a_total":
-        add(f"  {'first stage A_dm at o2:':<44}{_db(result.adm_db_first)}  ({_vv(result.adm_db_first)})")
-    add(f"  {gain_name + ':':<44}{_db(result.adm_db)}  ({_vv(result.adm_db)})")
-    add(f"  {'common-mode gain A_cm,se:':<44}{_db(result.acm_se_db)}  ({_vv(result.acm_se_db)})")
+        add(_row("first stage A_dm at o2", f"{_db(result.adm_db_first)}  ({_vv(result.adm_db_first)})"))
+    add(_row(gain_name, f"{_db(result.adm_db)}  ({_vv(result.adm_db)})"))
+    add(_row("common-mode gain A_cm,se", f"{_db(result.acm_se_db)}  ({_vv(result.acm_se_db)})"
+             if result.acm_se_db is not None else "0 V/V (zero to rounding)"))
     add("")
     add("Bandwidth")
-    add(f"  {'−3 dB frequency f_3dB:':<44}{format_si(result.f3db_hz, 'Hz')}")
-    add(f"  {'unity-gain frequency:':<44}{format_si(result.ugf_hz, 'Hz')}")
+    add(_row("−3 dB frequency f_3dB", format_si(result.f3db_hz, 'Hz')))
+    add(_row("unity-gain frequency", format_si(result.ugf_hz, 'Hz')))
     add("")
     add("Common-mode rejection")
-    add(f"  {'CMRR single-ended (DC):':<44}{_db(result.cmrr_se_db) if result.cmrr_se_db is not None else '∞ (common-mode gain is zero)'}")
+    add(_row("CMRR single-ended (DC)", _db(result.cmrr_se_db) if result.cmrr_se_db is not None
+             else "∞ (common-mode gain is zero)"))
     if result.stage.balanced:
-        add(f"  {'CMRR balanced (DC):':<44}"
-            + (_db(result.cmrr_db) if result.cmrr_db is not None else "∞ (perfectly matched)"))
+        add(_row("CMRR balanced (DC)", _db(result.cmrr_db) if result.cmrr_db is not None
+                 else "∞ (perfectly matched)"))
         if result.cmrr_textbook_db is not None:
-            add(f"  {'A_dm / A_cm-cm (textbook ratio):':<44}{_db(result.cmrr_textbook_db)}")
-    add(f"  {'CMRR corner (−3 dB):':<44}{format_si(result.cmrr_corner_hz, 'Hz')}")
+            add(_row("A_dm / A_cm-cm (textbook ratio)", _db(result.cmrr_textbook_db)))
+    add(_row("CMRR corner (−3 dB)", format_si(result.cmrr_corner_hz, 'Hz')
+             if result.cmrr_corner_hz is not None
+             else "— (CMRR is infinite)" if result.cmrr_se_db is None
+             else "— (CMRR does not fall 3 dB)"))
     add("")
     lines.extend(pole_zero_section(result))
     if d.feedback is not None:
@@ -136,7 +149,7 @@ def pole_zero_section(result, top: int = 3) -> list[str]:
         note = f"  [{row.note}]" if row.note else ""
         out.append(f"  {row.kind:<4}  {where}{note}")
         if who:
-            out.append(f"        set by: {who}")
+            out.append(f"  {'      set by:':<45} {who}")
     if zpk.cancelled_rad_s:
         out.append(f"  cancelled pole-zero pairs (modes this gain does not see): "
                    + ", ".join(format_si(abs(p) / (2 * math.pi), "Hz")
@@ -150,7 +163,7 @@ def pole_zero_section(result, top: int = 3) -> list[str]:
         ap = "—" if r.approx is None else format_si(r.approx, unit)
         er = "—" if r.error_pct is None else f"{r.error_pct:+.1f} %"
         out.append(f"  {r.label:<44}{ex:>14}{ap:>14}{er:>10}")
-        out.append(f"      method: {r.method}")
+        out.append(f"  {'    method:':<45} {r.method}")
         if r.note:
-            out.append(f"      note: {r.note}")
+            out.append(f"  {'    note:':<45} {r.note}")
     return out
