@@ -252,6 +252,8 @@ class BatchEvaluator:
     def paired(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray) -> BatchGains:
         """Gains of sample i at its own ``s[i]`` [rad/s]; arrays ``(n_samples,)``."""
         s = np.atleast_1d(np.asarray(s, dtype=complex))
-        H0, P, Q, K = self._blocks(self.solver.response(s))
+        # a batched direct solve: each point solved on its own, so results never depend
+        # on how many points a chunk holds (chunking and executors give identical answers)
+        H0, P, Q, K = self._blocks(self.solver.response_direct(s))
         D = dG + s[:, None] * dC
         return self._gains(self._combine(H0, P, Q, K, D))

@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .poles import response_zpk
+from .quantities import format_si
 
 __all__ = ["HandRow", "hand_table", "hand_json"]
 
@@ -137,8 +138,13 @@ def hand_table(analysis) -> list[HandRow]:
 
     # --- poles of the first stage
     zpk = response_zpk(analysis, first)
-    p = zpk.poles_rad_s
-    p_hz = np.sort(np.abs(p[p != 0])) / TWO_PI
+    p = zpk.poles_rad_s[zpk.poles_rad_s != 0]
+    z = zpk.zeros_rad_s
+    # a pole with a zero within 0.1 % is a near-cancelled doublet (a common-mode mode
+    # leaking through mismatch): it sets no bandwidth, so hand poles are not matched to it
+    near_cancelled = np.array([z.size > 0 and np.min(np.abs(z - pk)) <= 1e-3 * abs(pk)
+                               for pk in p], dtype=bool)
+    p_hz = np.sort(np.abs(p[~near_cancelled])) / TWO_PI
     f_out = 1.0 / (TWO_PI * r_out * c_out_miller) if c_out_miller > 0 else None
     f_in = None
     miller_note = None
@@ -147,6 +153,12 @@ def hand_table(analysis) -> list[HandRow]:
     else:
         miller_note = "no source or base resistance: the input node has no pole"
     ex_in = _nearest(p_hz, f_in)
+    ex_out = _nearest(p_hz, f_out)
+    if f_in is not None and f_out is not None and p_hz.size >= 2:
+        # two hand poles against the two slowest exact poles, in order of frequency
+        # (pole splitting moves both, so "nearest" would pair both with one pole)
+        ex_in, ex_out = (p_hz[0], p_hz[1]) if f_in <= f_out else (p_hz[1], p_hz[0])
+        ex_in, ex_out = float(ex_in), float(ex_out)
     if miller_note is None and f_out is not None and 0.1 < f_in / f_out < 10:
         miller_note = (f"input and output poles within 10× ({_fmt(f_in)} vs {_fmt(f_out)}): "
                        "the Miller split does not hold")
@@ -168,7 +180,7 @@ def hand_table(analysis) -> list[HandRow]:
         out_note = "second stage present: its Miller capacitor is not in this formula"
     rows.append(_row("output_pole_hz", "output pole",
                      "Miller: 1/(2π·R_out·(C_L + C_cs + C_mu·(1+1/(g_m·R_out))))",
-                     _nearest(p_hz, f_out), f_out, "Hz", out_note))
+                     ex_out, f_out, "Hz", out_note))
 
     # --- mirror pole
     taus = [r_in * cpi, cmu * (r_in + r_out + gm * r_in * r_out), r_out * c_out]
@@ -220,7 +232,7 @@ def hand_table(analysis) -> list[HandRow]:
         near = [f for f in p_hz if 0.1 < f / f_tail < 10]
         if 2 * cmu > 0.1 * c_t:
             tail_note = (f"C_mu feed-through shifts the zero: needs C_tail ≫ 2·C_mu "
-                         f"({c_t:.3g} F vs {2 * cmu:.3g} F)")
+                         f"({format_si(c_t, 'F')} vs {format_si(2 * cmu, 'F')})")
         elif near:
             tail_note = (f"a differential-gain pole ({_fmt(near[0])}) lies within 10× of the "
                          "tail zero: both set the corner")
@@ -235,7 +247,7 @@ def hand_table(analysis) -> list[HandRow]:
         elif loop < 20:
             cm_note = f"2·g_m·R_tail = {loop:.3g} is not ≫ 1"
         elif rpi != math.inf and rpi * gm * ro < 30 * 2 * r_t:
-            cm_note = (f"β·r_o = {rpi * gm * ro:.3g} Ω is not ≫ 2·R_tail = {2 * r_t:.3g} Ω "
+            cm_note = (f"β·r_o = {format_si(rpi * gm * ro, 'Ω')} is not ≫ 2·R_tail = {format_si(2 * r_t, 'Ω')} "
                        "(r_o and base current carry common-mode current)")
         acm_hand = -r_l / (2 * r_t) + 0.0
         zero_ref = 1e-12 * abs(complex(dc.get(first)[0]))
@@ -248,7 +260,7 @@ def hand_table(analysis) -> list[HandRow]:
         conv = -(r_l / (2 * r_t)) * (mm.load + mm.gm) + 0.0
         conv_note = cm_note
         if cm_note is None and mm.gm != 0 and ro < 30 * 2 * r_t:
-            conv_note = (f"r_o = {ro:.3g} Ω is not ≫ 2·R_tail = {2 * r_t:.3g} Ω: g_m mismatch "
+            conv_note = (f"r_o = {format_si(ro, 'Ω')} is not ≫ 2·R_tail = {format_si(2 * r_t, 'Ω')}: g_m mismatch "
                          "also converts the common-mode current in r_o")
         if mm.load == 0 and mm.gm == 0:
             conv_note = "perfectly matched: both are zero"

@@ -107,8 +107,8 @@ class MetricRow:
 def _flat(data: dict) -> dict:
     out = {}
     for k, v in data.items():
-        if k in ("name", "operating_point"):
-            continue
+        if k in ("name", "operating_point", "poles_hz", "zeros_hz", "hand"):
+            continue   # shown in the poles/zeros and hand sections
         if isinstance(v, dict):
             for k2, v2 in v.items():
                 if not isinstance(v2, (dict, list)):
@@ -229,15 +229,8 @@ def page(title: str, subtitle: str, body: str, plots: dict | None = None,
             f"<main>{body}</main></body></html>\n")
 
 
-def _not_available(what: str) -> str:
-    return f'<p class="note">{escape(what)}: not available in this build.</p>'
-
-
 def _pole_zero_html(analysis) -> str:
-    try:
-        from .poles import pole_zero_table
-    except ImportError:
-        return _core_pole_zero_html(analysis)
+    from .poles import pole_zero_table
     rows = []
     for r in pole_zero_table(analysis):
         contrib = ", ".join(f"{lab} {share * 100:.0f} %" for lab, share in
@@ -247,33 +240,8 @@ def _pole_zero_html(analysis) -> str:
     return table(rows, ["kind", "|f|", "Re", "Im", "Q", "main contributors"], (1, 2, 3, 4))
 
 
-def _core_pole_zero_html(analysis, limit: int = 12) -> str:
-    """Natural frequencies of the network and zeros of the main gain, from the core solver."""
-    import numpy as np
-    resp = analysis.responses
-    row, kind = resp.output_row(analysis.primary)
-    zeros = resp.solver.zeros(resp.excitation(kind), row)
-    rows = []
-    for label, roots in (("pole", analysis.natural_frequencies_rad_s), ("zero", zeros)):
-        roots = np.asarray(roots)
-        roots = roots[np.argsort(np.abs(roots))]
-        shown = [s for s in roots if s.imag >= 0][:limit]
-        for s in shown:
-            mag = abs(s) / (2 * np.pi)
-            q = "—" if abs(s.imag) < 1e-9 * abs(s) else f"{abs(s) / (-2 * s.real):.3g}"
-            rows.append((label, format_si(mag, "Hz"), format_si(s.real / (2 * np.pi), "Hz"),
-                         format_si(abs(s.imag) / (2 * np.pi), "Hz"), q))
-    note = (f'<p class="note">Poles: all natural frequencies of the network; zeros: of '
-            f'{escape(analysis.primary)} (s = −2π·f for a left-half-plane root). '
-            "Complex pairs shown once.</p>")
-    return note + table(rows, ["kind", "|f|", "Re", "Im", "Q"], (1, 2, 3, 4))
-
-
 def _hand_html(analysis) -> str:
-    try:
-        from .hand import hand_table
-    except ImportError:
-        return _not_available("Hand-vs-exact table")
+    from .hand import hand_table
     rows = []
     for r in hand_table(analysis):
         unit = r.unit or ""
@@ -286,10 +254,7 @@ def _hand_html(analysis) -> str:
 def _loop_html(analysis) -> str:
     if analysis.design.feedback is None:
         return '<p class="note">No [feedback] table in the design: no loop margins.</p>'
-    try:
-        from .loop import loop_analysis
-    except ImportError:
-        return _not_available("Loop margins")
+    from .loop import loop_analysis
     lr = loop_analysis(analysis)
     if lr is None:
         return '<p class="note">No loop result for this design.</p>'

@@ -163,7 +163,7 @@ def pole_zero_section(result, top: int = 3) -> list[str]:
         ap = "—" if r.approx is None else format_si(r.approx, unit)
         er = "—" if r.error_pct is None else f"{r.error_pct:+.1f} %"
         out.append(f"  {r.label:<44}{ex:>14}{ap:>14}{er:>10}")
-        out.append(f"  {'    method:':<45} {r.method}")
+        out.append(f"      method: {r.method}")
         if r.note:
-            out.append(f"  {'    note:':<45} {r.note}")
+            out.append(f"      note: {r.note}")
     return out
