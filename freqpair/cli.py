@@ -48,6 +48,7 @@ def register_analyze(sub) -> None:
 #: Add a new subcommand as ``register(sub)`` in its own module and list it here.
 SUBCOMMANDS = [
     "freqpair.cli:register_analyze",
+    "freqpair.cli_app:register",
 ]
 
 
