@@ -116,8 +116,10 @@ class Explorer:
     # ------------------------------------------------------------- layout
     def _layout(self):
         grid = self.curves
-        mag = bode_figure(grid, "magnitude", pinned=self.pinned, height=300)
-        phase = bode_figure(grid, "phase", pinned=self.pinned, x_range=mag.x_range, height=240)
+        mag = bode_figure(grid, "magnitude", pinned=self.pinned, height=270)
+        phase = bode_figure(grid, "phase", pinned=self.pinned, x_range=mag.x_range, height=210)
+        phase.legend.visible = False
+        mag.xaxis.axis_label = None
         balanced = self.data is None or self.data["balanced"]
         cmrr = cmrr_figure(grid, self.corner, self.target, self.target_line, pinned=self.pinned,
                            balanced=balanced, height=480)
