@@ -21,6 +21,7 @@ from .design import Design, design_to_dict, parse_design
 from .errors import DesignError
 from .metrics import db, lowest_crossing
 from .quantities import format_si
+from .responses import ZERO_GAIN_RATIO
 
 __all__ = ["explore", "explore_grid", "editable_values", "EditableValue", "switch_kind",
            "KIND_CHOICES", "curves_csv", "CURVE_COLUMNS", "NOT_AVAILABLE"]
@@ -422,16 +423,22 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None) -
     r = analysis.responses.at(f)
     n = f.size
     main = r.get(analysis.primary)
+    ref = np.abs(r.adm if r.adm is not None else r.adm_se)
+
+    def zeroed(x):   # a gain zero to rounding (DESIGN.md §2) is exactly zero: no curve
+        return np.where(np.abs(x) <= ZERO_GAIN_RATIO * ref, 0.0, x)
+
+    acm_se = zeroed(r.acm_se)
     curves = {"f_hz": f, "adm_db": _finite_db(main), "adm_deg": _deg(main),
-              "acm_se_db": _finite_db(r.acm_se), "acm_se_deg": _deg(r.acm_se)}
+              "acm_se_db": _finite_db(acm_se), "acm_se_deg": _deg(r.acm_se)}
     if r.acm_dm is not None:
-        curves["acm_dm_db"] = _finite_db(r.acm_dm)
+        curves["acm_dm_db"] = _finite_db(zeroed(r.acm_dm))
         curves["acm_dm_deg"] = np.where(np.isfinite(curves["acm_dm_db"]), _deg(r.acm_dm),
                                         np.nan)
-        curves["cmrr_db"] = _finite_db(r.adm) - _finite_db(r.acm_dm)
+        curves["cmrr_db"] = _finite_db(r.adm) - curves["acm_dm_db"]
     else:
         curves["acm_dm_db"] = curves["acm_dm_deg"] = curves["cmrr_db"] = _nan(n)
-    curves["cmrr_se_db"] = _finite_db(r.adm_se) - _finite_db(r.acm_se)
+    curves["cmrr_se_db"] = _finite_db(r.adm_se) - _finite_db(acm_se)
     for k in ("acm_se_deg",):
         curves[k] = np.where(np.isfinite(curves["acm_se_db"]), curves[k], np.nan)
 
