@@ -66,14 +66,13 @@ def cmd_app(args) -> int:
     except OSError as exc:
         raise DesignError(f"--port = {args.port}: cannot listen on {HOST} "
                           f"({exc.strerror or exc})") from None
+    def stop(*_):
+        server.io_loop.add_callback(server.io_loop.stop)   # signal-safe in tornado ≥ 6.3
+
+    signal.signal(signal.SIGTERM, stop)
     server.start()
     url = f"http://{HOST}:{args.port}/"
     print(f"freqpair explorer at {url}  (Ctrl-C stops it)", flush=True)
-
-    def stop(*_):
-        server.io_loop.add_callback_from_signal(server.io_loop.stop)
-
-    signal.signal(signal.SIGTERM, stop)
     if not args.no_browser:
         server.io_loop.add_callback(server.show, "/")
     try:
