@@ -66,10 +66,8 @@ def cmd_app(args) -> int:
     except OSError as exc:
         raise DesignError(f"--port = {args.port}: cannot listen on {HOST} "
                           f"({exc.strerror or exc})") from None
-    def stop(*_):
-        server.io_loop.add_callback(server.io_loop.stop)   # signal-safe in tornado ≥ 6.3
-
-    signal.signal(signal.SIGTERM, stop)
+    # SIGTERM stops the loop from inside the loop (asyncio's own signal handling)
+    server.io_loop.asyncio_loop.add_signal_handler(signal.SIGTERM, server.io_loop.stop)
     server.start()
     url = f"http://{HOST}:{args.port}/"
     print(f"freqpair explorer at {url}  (Ctrl-C stops it)", flush=True)
