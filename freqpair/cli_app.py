@@ -66,8 +66,9 @@ def cmd_app(args) -> int:
     except OSError as exc:
         raise DesignError(f"--port = {args.port}: cannot listen on {HOST} "
                           f"({exc.strerror or exc})") from None
-    # SIGTERM stops the loop from inside the loop (asyncio's own signal handling)
-    server.io_loop.asyncio_loop.add_signal_handler(signal.SIGTERM, server.io_loop.stop)
+    # Ctrl-C (SIGINT) and SIGTERM stop the loop from inside the loop (asyncio's signal handling)
+    for sig in (signal.SIGINT, signal.SIGTERM):
+        server.io_loop.asyncio_loop.add_signal_handler(sig, server.io_loop.stop)
     server.start()
     url = f"http://{HOST}:{args.port}/"
     print(f"freqpair explorer at {url}  (Ctrl-C stops it)", flush=True)
