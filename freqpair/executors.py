@@ -166,7 +166,7 @@ class DaskExecutor(Executor):
         done: dict[int, Any] = {}
         nxt = 0
         try:
-            for fut in distributed.as_completed(futures):
+            for fut in distributed.as_completed(futures, loop=self.client.loop):
                 i = index[fut.key]
                 done[i] = fut.result()       # re-raises a chunk's own error (one line)
                 futures[i] = None            # let the cluster free the result
