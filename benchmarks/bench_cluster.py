@@ -63,8 +63,10 @@ def main(argv=None) -> dict:
         if tuned:
             env.update(WORKER_ENV)
         t0 = time.perf_counter()
-        with dask.config.set({"distributed.nanny.pre-spawn-environ": env}), LocalCluster(n_workers=w, threads_per_worker=1, processes=True, host="127.0.0.1",
-                          dashboard_address=None) as cluster, \
+        with dask.config.set({"distributed.nanny.pre-spawn-environ": env}), \
+                LocalCluster(n_workers=w, threads_per_worker=1, processes=True,
+                             host="127.0.0.1", dashboard_address=None,
+                             scheduler_kwargs={"dashboard_address": "127.0.0.1:0"}) as cluster, \
                 Client(cluster, set_as_default=False) as client:
             t_start = time.perf_counter() - t0
             t_run, res = _run(design, spec, args.samples, f, DaskExecutor(client), args.chunk)

@@ -71,6 +71,22 @@ def test_cli_without_dask_prints_one_line_and_exits_nonzero():
     assert r.stderr.strip().count("\n") == 0 and "freqpair[cluster]" in r.stderr
 
 
+def test_cli_target_over_a_grid_gives_one_row_per_point_matching_solve_target(design):
+    # oracle: freqpair.targets.solve_target at each grid point (single solves)
+    r = subprocess.run([sys.executable, "-m", "freqpair.cli", "target", EXAMPLE, "--vary",
+                        "tail.capacitance=0.1p:100p", "--metric", "cmrr_se_db", "--at", "100k",
+                        "--min", "60", "--over", "bias.tail_current=1m,2m", "--json"],
+                       capture_output=True, text=True, timeout=120)
+    assert r.returncode == 0, r.stderr
+    rows = json.loads(r.stdout)["rows"]
+    base = freqpair.load_design(EXAMPLE)
+    for row, tail in zip(rows, (1e-3, 2e-3)):
+        one = freqpair.targets.solve_target(
+            freqpair.design.replace_value(base, "bias.tail_current", tail), "tail.capacitance",
+            "cmrr_se_db", 60.0, "min", (1e-13, 1e-10), at_hz=1e5)
+        assert row["bias.tail_current"] == tail and row["tail.capacitance"] == one.value
+
+
 def test_default_executor_is_local():
     # common practice: the documented default (None → this process)
     assert isinstance(get_executor(None), LocalExecutor)
@@ -87,7 +103,8 @@ def cluster():
     import cloudpickle
     cloudpickle.register_pickle_by_value(sys.modules[__name__])   # _tagged on the workers
     cl = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                  host="127.0.0.1", dashboard_address=None)
+                                  host="127.0.0.1", dashboard_address=None,
+                                  scheduler_kwargs={"dashboard_address": "127.0.0.1:0"})
     client = distributed.Client(cl, set_as_default=False)
     yield cl, client
     client.close()
