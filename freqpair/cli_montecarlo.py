@@ -15,7 +15,7 @@ import sys
 
 import numpy as np
 
-from .cli_sweep import CliError, _num, _progress
+from .cli_sweep import CliError, _num, _progress, _with_executor, add_scheduler_option
 
 __all__ = ["register", "parse_spread"]
 
@@ -65,8 +65,9 @@ def cmd_montecarlo(args) -> int:
     show = args.progress if args.progress is not None else sys.stderr.isatty()
     cb, close = _progress(args.samples, "montecarlo") if show else (None, lambda: None)
     try:
-        res = run_montecarlo(design, spec, args.samples, args.seed, f_hz=f, chunk=args.chunk,
-                             percentiles=q, progress=cb)
+        res = _with_executor(args, lambda ex: run_montecarlo(
+            design, spec, args.samples, args.seed, f_hz=f, chunk=args.chunk, percentiles=q,
+            progress=cb, executor=ex))
     finally:
         close()
     obj = res.to_json(yspec)
@@ -127,6 +128,7 @@ def register(sub) -> None:
     p.add_argument("--chunk", type=int, default=4096, help="samples per chunk (memory bound)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--csv", metavar="FILE", help="write the CMRR bands per frequency as CSV")
+    add_scheduler_option(p)
     g = p.add_mutually_exclusive_group()
     g.add_argument("--progress", dest="progress", action="store_true", default=None,
                    help="force the progress bar (default: on a terminal only)")

@@ -61,6 +61,31 @@ def _progress(total: int, desc: str):
     return bar.update, bar.close
 
 
+def executor_from(args):
+    """The executor named by ``--scheduler`` (None: this process)."""
+    address = getattr(args, "scheduler", None)
+    if not address:
+        return None
+    from .executors import DaskExecutor
+    return DaskExecutor(address)
+
+
+def add_scheduler_option(p) -> None:
+    """``--scheduler tcp://HOST:PORT``: run the chunks on a Dask cluster."""
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="run on a Dask cluster at this scheduler address (tcp://host:8786); "
+                        'needs pip install "freqpair[cluster]"')
+
+
+def _with_executor(args, run):
+    ex = executor_from(args)
+    try:
+        return run(ex)
+    finally:
+        if ex is not None:
+            ex.close()
+
+
 def cmd_sweep(args) -> int:
     from .cli import _load
     from .design import atomic_write_text
@@ -75,8 +100,9 @@ def cmd_sweep(args) -> int:
         total *= len(a.values)
     cb, close = _progress(total, "sweep")
     try:
-        result = sweep(design, axes, metrics=metrics, curves=args.curves, at_hz=at_hz,
-                       progress=cb)
+        result = _with_executor(args, lambda ex: sweep(
+            design, axes, metrics=metrics, curves=args.curves, at_hz=at_hz, progress=cb,
+            executor=ex))
     finally:
         close()
     fmt = args.format or ("json" if args.out and args.out.endswith(".json") else "csv")
@@ -109,6 +135,7 @@ def register(sub) -> None:
     p.add_argument("--format", choices=("csv", "json"), help="output format (default csv, "
                    "or json when --out ends in .json)")
     p.add_argument("--out", "-o", metavar="FILE", help="write to FILE instead of stdout")
+    add_scheduler_option(p)
     p.set_defaults(func=cmd_sweep)
     register_target(sub)
 
@@ -127,6 +154,8 @@ def cmd_target(args) -> int:
     kind, bound = ("min", _num(args.min, "--min")) if args.min is not None else \
         ("max", _num(args.max, "--max"))
     at_hz = _num(args.at, "--at") if args.at else None
+    if args.over:
+        return _target_over(args, design, key.strip(), kind, bound, (lo, hi), at_hz)
     res = solve_target(design, key.strip(), args.metric, bound, kind, (lo, hi), at_hz=at_hz,
                        want=args.want)
     if args.json:
@@ -140,6 +169,24 @@ def cmd_target(args) -> int:
         mv = "—" if res.metric_value is None else f"{res.metric_value:.6g}"
         print(f"re-analysed: {res.metric} = {mv} — {'met' if res.met else 'NOT met'}")
     return 0 if res.met else 1
+
+
+def _target_over(args, design, key, kind, bound, bounds, at_hz) -> int:
+    """``freqpair target … --over AXIS``: the target at every grid point (CSV or JSON)."""
+    from .target_grid import solve_target_grid
+    axes = [parse_axis(t) for t in args.over]
+    total = 1
+    for a in axes:
+        total *= len(a.values)
+    cb, close = _progress(total, "target")
+    try:
+        res = _with_executor(args, lambda ex: solve_target_grid(
+            design, axes, key, args.metric, bound, kind, bounds, at_hz, args.want,
+            progress=cb, executor=ex))
+    finally:
+        close()
+    sys.stdout.write(res.to_json_text() + "\n" if args.json else res.to_csv())
+    return 0
 
 
 def register_target(sub) -> None:
@@ -157,4 +204,8 @@ def register_target(sub) -> None:
     p.add_argument("--want", choices=("largest", "smallest"),
                    help="which edge of the feasible range (default: inferred)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--over", action="append", metavar="AXIS",
+                   help="solve at every point of this grid axis (KEY=START:STOP:N[:log] or "
+                        "KEY=V1,V2,...; give once or twice); prints CSV, or JSON with --json")
+    add_scheduler_option(p)
     p.set_defaults(func=cmd_target)

@@ -430,7 +430,8 @@ class MonteCarloResult:
 
 def run_montecarlo(design, spec: MonteCarloSpec, n: int, seed: int, f_hz=None,
                    chunk: int = 4096, percentiles=(5.0, 50.0, 95.0),
-                   progress: Callable[[int], None] | None = None) -> MonteCarloResult:
+                   progress: Callable[[int], None] | None = None,
+                   executor=None) -> MonteCarloResult:
     """Run ``n`` Monte Carlo samples of ``design`` with the spreads of ``spec``.
 
     Parameters
@@ -445,11 +446,16 @@ def run_montecarlo(design, spec: MonteCarloSpec, n: int, seed: int, f_hz=None,
         Frequencies [Hz] for the CMRR curves (default: 200 log-spaced points over
         the design's sweep range).
     chunk : int
-        Samples per chunk (memory and progress granularity only).
+        Samples per chunk (memory and progress granularity only); on a cluster
+        the largest chunk, made smaller to give every worker several chunks.
     percentiles : sequence of float
         Band percentiles [%].
     progress : callable, optional
         Called with the number of samples finished after each chunk.
+    executor : None, Executor, distributed.Client or str, optional
+        Where the chunks run (:mod:`freqpair.executors`): None for this
+        process (default), a client or a scheduler address for a Dask
+        cluster. The results are identical on every executor.
 
     Returns
     -------
@@ -465,13 +471,20 @@ def run_montecarlo(design, spec: MonteCarloSpec, n: int, seed: int, f_hz=None,
     if f.ndim != 1 or f.size == 0 or not np.all(np.isfinite(f)) or np.any(f <= 0):
         raise MonteCarloError("f_hz: need positive finite frequencies [Hz]")
     f = np.unique(f)
-    eng = _Engine(design, spec, f)
-    parts = []
-    for start in range(0, n, chunk):
-        stop = min(n, start + chunk)
-        parts.append(run_chunk(design, spec, start, stop, seed, f, engine=eng))
-        if progress is not None:
-            progress(stop - start)
+    from .executors import chunk_ranges, get_executor, run_chunks, LocalExecutor
+    ex = get_executor(executor)
+    try:
+        if isinstance(ex, LocalExecutor):     # one engine (one QZ) shared by all chunks
+            eng = _Engine(design, spec, f)
+            ranges = chunk_ranges(int(n), int(chunk))
+            args = [(design, spec, a, b, seed, f, eng) for a, b in ranges]
+        else:                                 # each task builds its own engine
+            ranges = chunk_ranges(int(n), ex.chunk_size(int(n), int(chunk)))
+            args = [(design, spec, a, b, seed, f) for a, b in ranges]
+        parts = run_chunks(ex, run_chunk, args, [b - a for a, b in ranges], progress)
+    finally:
+        if ex is not executor:
+            ex.close()
 
     def cat(name):
         arrs = [getattr(p, name) for p in parts]

@@ -152,7 +152,8 @@ class SweepResult:
 
 def sweep(design, axes, metrics=DEFAULT_METRICS, curves: bool = False, f_hz=None,
           at_hz: float | None = None,
-          progress: Callable[[int], None] | None = None) -> SweepResult:
+          progress: Callable[[int], None] | None = None,
+          executor=None, chunk: int = 16) -> SweepResult:
     """Analyse ``design`` at every point of a 1-D or 2-D grid of design values.
 
     Parameters
@@ -170,7 +171,13 @@ def sweep(design, axes, metrics=DEFAULT_METRICS, curves: bool = False, f_hz=None
         Evaluate the frequency-dependent metrics (``cmrr_se_db`` …) at this
         frequency [Hz] instead of DC.
     progress : callable, optional
-        Called with 1 after each point.
+        Called with the number of points finished (after each chunk).
+    executor : None, Executor, distributed.Client or str, optional
+        Where the points run (:mod:`freqpair.executors`): None for this
+        process (default), a client or a scheduler address for a Dask cluster.
+    chunk : int
+        Most grid points per chunk (task); on a cluster fewer, so that every
+        worker gets several chunks.
 
     Returns
     -------
@@ -198,27 +205,58 @@ def sweep(design, axes, metrics=DEFAULT_METRICS, curves: bool = False, f_hz=None
         store = {"adm_db": np.full(shape + (grid.size,), np.nan),
                  "cmrr_se_db": np.full(shape + (grid.size,), np.nan),
                  "cmrr_db": np.full(shape + (grid.size,), np.nan)}
-    for idx in itertools.product(*(range(n) for n in shape)):
+    from .executors import chunk_ranges, get_executor, run_chunks
+    points = list(itertools.product(*(range(n) for n in shape)))
+    ex = get_executor(executor)
+    try:
+        ranges = chunk_ranges(len(points), ex.chunk_size(len(points), chunk))
+        args = [(design, axes, tuple(metrics), at_hz, grid, points[a:b]) for a, b in ranges]
+        parts = run_chunks(ex, sweep_points, args, [b - a for a, b in ranges], progress)
+    finally:
+        if ex is not executor:
+            ex.close()
+    for part in parts:
+        for idx, vals, crv, err in part:
+            if err is not None:
+                errors[idx] = err
+                continue
+            for m, v in zip(metrics, vals):
+                table[m][idx] = np.nan if v is None else v
+            if crv is not None:
+                for name, arr in zip(("adm_db", "cmrr_se_db", "cmrr_db"), crv):
+                    if arr is not None:
+                        store[name][idx] = arr
+    table = {m: np.where(np.isfinite(v), v, np.nan) for m, v in table.items()}
+    if store is not None and np.all(np.isnan(store["cmrr_db"])):
+        del store["cmrr_db"]
+    return SweepResult(axes, tuple(metrics), table, errors, at_hz, grid, store)
+
+
+def sweep_points(design, axes, metrics, at_hz, grid, points) -> list:
+    """Analyse some grid points of a sweep: a pure function (one chunk of :func:`sweep`).
+
+    Returns
+    -------
+    list of (idx, metric values, curves, error)
+        Per point: the grid index; the metric values (None where undefined);
+        ``(adm_db, cmrr_se_db, cmrr_db)`` arrays over ``grid`` [dB] (``cmrr_db``
+        None without a balanced output), or None when ``grid`` is None; the
+        one-line error, or None.
+    """
+    out = []
+    for idx in points:
         try:
             point = design
             for a, i in zip(axes, idx):
                 point = replace_value(point, a.key, a.values[i])
             res = analyze(point)
-            for m in metrics:
-                v = metric_value(res, m, at_hz)
-                table[m][idx] = np.nan if v is None else v
-            if curves:
+            vals = tuple(metric_value(res, m, at_hz) for m in metrics)
+            crv = None
+            if grid is not None:
                 r = res.responses.at(grid)
-                prim = r.get(res.primary)
-                store["adm_db"][idx] = db(prim)
-                store["cmrr_se_db"][idx] = db(r.adm_se) - db(r.acm_se)
-                if r.adm is not None:
-                    store["cmrr_db"][idx] = db(r.adm) - db(r.acm_dm)
+                crv = (db(r.get(res.primary)), db(r.adm_se) - db(r.acm_se),
+                       None if r.adm is None else db(r.adm) - db(r.acm_dm))
+            out.append((idx, vals, crv, None))
         except FreqpairError as exc:
-            errors[idx] = str(exc)
-        if progress is not None:
-            progress(1)
-    table = {m: np.where(np.isfinite(v), v, np.nan) for m, v in table.items()}
-    if store is not None and np.all(np.isnan(store["cmrr_db"])):
-        del store["cmrr_db"]
-    return SweepResult(axes, tuple(metrics), table, errors, at_hz, grid, store)
+            out.append((idx, None, None, str(exc)))
+    return out
