@@ -18,6 +18,7 @@ eigenvalues of the (frequency-scaled) descriptor pencil.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -216,7 +217,9 @@ class Network:
     def solver(self, outputs: np.ndarray) -> "FrequencySolver":
         """A :class:`FrequencySolver` for the outputs given as rows of ``outputs``."""
         G, C, B = self.matrices()
-        return FrequencySolver(G, C, B, np.atleast_2d(outputs))
+        solver = FrequencySolver(G, C, B, np.atleast_2d(outputs))
+        solver.names = self.node_names + [f"i({n})" for n in self.input_names]
+        return solver
 
 
 @dataclass(frozen=True)
@@ -226,6 +229,8 @@ class _Reduced:
     Bt: np.ndarray
     Lt: np.ndarray
     s0: float
+    Q: np.ndarray = None
+    Z: np.ndarray = None
 
 
 class FrequencySolver:
@@ -252,6 +257,8 @@ class FrequencySolver:
         self.G, self.C, self.B, self.L = G, C, B, L
         self.n = G.shape[0]
         self._red: _Reduced | None = None
+        #: names of the unknowns (set by :meth:`Network.solver`), for messages
+        self.names: list[str] | None = None
 
     @property
     def s0(self) -> float:
@@ -269,22 +276,54 @@ class FrequencySolver:
             if np.any((diag_a <= 1e-14 * scale) & (diag_b <= 1e-14 * scale)):
                 raise NetworkError("the network is singular at every frequency "
                                    "(a node has no defined voltage)")
-            self._red = _Reduced(AA, BB, Q.conj().T @ self.B, self.L @ Z, s0)
+            self._red = _Reduced(AA, BB, Q.conj().T @ self.B, self.L @ Z, s0, Q, Z)
         return self._red
 
     def dc(self) -> np.ndarray:
         """``H(0) = L G⁻¹ B`` by a direct solve, shape (p, m)."""
         try:
-            lu = sla.lu_factor(self.G, check_finite=True)
+            with warnings.catch_warnings():
+                # an exactly singular G is reported below as a one-line error
+                warnings.simplefilter("ignore", sla.LinAlgWarning)
+                lu = sla.lu_factor(self.G, check_finite=True)
         except (ValueError, np.linalg.LinAlgError) as exc:
             raise NetworkError(f"cannot solve the network at DC ({exc})") from None
         if np.any(np.abs(np.diag(lu[0])) <= 1e-14 * np.abs(self.G).max()):
-            raise NetworkError("the network has no DC solution (a node has no DC path; "
-                               "e.g. a node connected only through capacitors)")
+            raise NetworkError("the network has no DC solution: "
+                               f"{self._floating_at_dc()} has no DC path (e.g. a node "
+                               "connected only through capacitors, or an infinite r_o "
+                               "from lambda = 0 as its only load)")
         return self.L @ sla.lu_solve(lu, self.B)
+
+    def _floating_at_dc(self) -> str:
+        """Name of the unknown that dominates the null vector of G (for messages)."""
+        _, _, vh = np.linalg.svd(self.G)
+        k = int(np.argmax(np.abs(vh[-1])))
+        if self.names is not None and k < len(self.names):
+            return f"node {self.names[k]!r}"
+        return f"unknown {k}"
+
+    def _back_substitute(self, red: _Reduced, sp: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+        """Solve (AA + sp·BB)·y = rhs for every frequency; rhs (n_f, n, m)."""
+        n = self.n
+        y = np.empty(rhs.shape, dtype=complex)
+        AA, BB = red.AA, red.BB
+        for i in range(n - 1, -1, -1):
+            r = rhs[:, i, :]
+            if i < n - 1:
+                row = AA[i, i + 1:][None, :] + sp[:, None] * BB[i, i + 1:][None, :]
+                r = r - np.einsum("fj,fjm->fm", row, y[:, i + 1:, :])
+            diag = AA[i, i] + sp * BB[i, i]
+            y[:, i, :] = r / diag[:, None]
+        return y
 
     def response(self, s: np.ndarray) -> np.ndarray:
         """Transfer matrix at complex frequencies ``s`` [rad/s].
+
+        One QZ back-substitution per frequency, then one step of iterative
+        refinement on the residual of the original ``(G + sC)·x = B`` (far
+        above the pencil's scale frequency the triangular solve alone loses
+        digits in badly scaled networks; the step restores them).
 
         Parameters
         ----------
@@ -297,18 +336,13 @@ class FrequencySolver:
         s = np.atleast_1d(np.asarray(s, dtype=complex))
         red = self._reduce()
         sp = s / red.s0
-        n = self.n
         m = red.Bt.shape[1]
-        y = np.empty((s.size, n, m), dtype=complex)
-        AA, BB = red.AA, red.BB
-        for i in range(n - 1, -1, -1):
-            rhs = np.broadcast_to(red.Bt[i], (s.size, m))
-            if i < n - 1:
-                row = AA[i, i + 1:][None, :] + sp[:, None] * BB[i, i + 1:][None, :]
-                rhs = rhs - np.einsum("fj,fjm->fm", row, y[:, i + 1:, :])
-            diag = AA[i, i] + sp * BB[i, i]
-            y[:, i, :] = rhs / diag[:, None]
-        out = np.einsum("pn,fnm->fpm", red.Lt, y)
+        with np.errstate(all="ignore"):
+            y = self._back_substitute(red, sp, np.broadcast_to(red.Bt, (s.size, self.n, m)))
+            x = red.Z @ y
+            resid = self.B[None] - self.G @ x - s[:, None, None] * (self.C @ x)
+            x = x + red.Z @ self._back_substitute(red, sp, red.Q.conj().T @ resid)
+            out = self.L @ x
         if not np.all(np.isfinite(out)):
             bad = s[~np.all(np.isfinite(out), axis=(1, 2))][0]
             raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")
