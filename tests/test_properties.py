@@ -15,8 +15,9 @@ import math
 import os
 
 import numpy as np
+import pytest
 import scipy.constants as sc
-from hypothesis import assume, given, settings
+from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from freqpair.analysis import analyze
@@ -32,7 +33,10 @@ DEEP = os.environ.get("FREQPAIR_HYPOTHESIS_PROFILE") == "deep"
 
 def examples(n):
     """Per-test example count in the "ci" profile (the "deep" profile's otherwise)."""
-    return settings(max_examples=10_000 if DEEP else n)
+    # capsys is read (and so reset) once per example, so sharing it is safe
+    return settings(max_examples=10_000 if DEEP else n,
+                    suppress_health_check=list(settings().suppress_health_check)
+                    + [HealthCheck.function_scoped_fixture])
 
 
 COMPLEMENT = {"npn": "pnp", "pnp": "npn", "nmos": "pmos", "pmos": "nmos"}
@@ -318,3 +322,188 @@ def test_rational_rebuild_from_poles_and_zeros_matches_the_direct_solve(d, name)
     rebuilt = rational(resp.solver, b, l, h0, s)
     ref = np.max(np.abs(direct))
     assert np.allclose(rebuilt, direct, rtol=1e-5, atol=1e-9 * ref)
+
+
+# ------------------------------------------------------------------ invalid designs
+import subprocess  # noqa: E402
+import sys  # noqa: E402
+
+import tomli_w  # noqa: E402
+
+from freqpair.cli import main  # noqa: E402
+
+
+def _leaf_keys(d, prefix=""):
+    """Dotted keys of every value (not table) in a design dict."""
+    out = []
+    for k, v in d.items():
+        key = f"{prefix}{k}"
+        if isinstance(v, dict):
+            out += _leaf_keys(v, key + ".")
+        else:
+            out.append(key)
+    return out
+
+
+def _set(d, key, value):
+    node = d
+    parts = key.split(".")
+    for p in parts[:-1]:
+        node = node[p]
+    node[parts[-1]] = value
+
+
+def _delete(d, key):
+    node = d
+    parts = key.split(".")
+    for p in parts[:-1]:
+        node = node[p]
+    del node[parts[-1]]
+
+
+@pytest.fixture(scope="module")
+def work(tmp_path_factory):
+    return tmp_path_factory.mktemp("fuzz")
+
+
+def run_cli(capsys, work, data=None, text=None):
+    """In-process ``freqpair analyze FILE --json``: (exit code, stdout, stderr)."""
+    path = work / "design.toml"
+    path.write_text(text if text is not None else tomli_w.dumps(data), encoding="utf-8")
+    code = main(["analyze", str(path), "--json"])
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def assert_refused(code, out, err, names):
+    # oracle: DESIGN.md §4 — non-zero exit, one stderr line naming the key, nothing on stdout
+    assert code != 0
+    assert out == ""
+    assert err.endswith("\n") and err.count("\n") == 1, err
+    assert "Traceback" not in err and "internal error" not in err, err
+    assert err.startswith("freqpair: error: ")
+    assert names in err, (names, err)
+
+
+_WRONG_TYPES = st.sampled_from([[1, 2], {"x": 1}, True, "abc", "12 parsecs", "", [],
+                                "1 meg", "--5"])
+_NON_FINITE = st.sampled_from([math.nan, math.inf, -math.inf, "inf", "nan"])
+_NUMERIC_SIZES = ("beta", "early_voltage", "vbe", "resistance", "tail_current", "temperature",
+                  "mobility_cox", "width", "length", "threshold", "degeneration", "gm",
+                  "output_resistance", "factor", "start", "stop", "phi_c")
+_ABSENTABLE = ("capacitance", "cje", "cjc0", "ccs", "cdb", "cox", "overlap_cap",
+               "extra_capacitance", "base_resistance", "lambda", "nulling_resistance",
+               "input_capacitance", "load_capacitance", "miller_capacitance", "m_c")
+
+
+def _numeric_keys(d):
+    return [k for k in _leaf_keys(d) if not k.endswith("type") and k != "name"]
+
+
+@examples(400)
+@given(d=designs(second_stage=None), data=st.data())
+def test_a_wrong_type_or_non_finite_value_is_refused_naming_its_key(d, data, capsys, work):
+    key = data.draw(st.sampled_from(_numeric_keys(d)))
+    bad = data.draw(st.one_of(_WRONG_TYPES, _NON_FINITE))
+    if key == "sweep.points_per_decade" and bad == "":
+        bad = "x"
+    _set(d, key, bad)
+    assert_refused(*run_cli(capsys, work, d), key)
+
+
+@examples(400)
+@given(d=designs(), data=st.data())
+def test_an_out_of_range_value_is_refused_naming_its_key(d, data, capsys, work):
+    keys = [k for k in _numeric_keys(d) if k.rsplit(".", 1)[-1] in _NUMERIC_SIZES + _ABSENTABLE]
+    key = data.draw(st.sampled_from(keys))
+    leaf = key.rsplit(".", 1)[-1]
+    if leaf in _NUMERIC_SIZES and key != "source.resistance":   # R_s = 0 means absent
+        bad = data.draw(st.sampled_from([0.0, -1.0, "-2 k", -1e-12]))
+    else:
+        bad = data.draw(st.sampled_from([-1.0, "-2 p", -1e-15]))
+    _set(d, key, bad)
+    assert_refused(*run_cli(capsys, work, d), key)
+
+
+@examples(300)
+@given(d=designs(), data=st.data())
+def test_a_missing_or_unknown_key_is_refused_naming_it(d, data, capsys, work):
+    required = ["supply", "bias", "pair", "load", "tail", "supply.positive", "supply.negative",
+                "bias.tail_current", "pair.type", "load.type", "tail.type"]
+    for table in ("pair", "load.device", "tail.device"):
+        sub = d
+        try:
+            for p in table.split("."):
+                sub = sub[p]
+        except KeyError:
+            continue
+        required += [f"{table}.{k}" for k in ("beta", "early_voltage", "mobility_cox", "width",
+                                             "length", "threshold", "lambda") if k in sub]
+    if d["load"]["type"] == "resistor":
+        required.append("load.resistance")
+    if d["tail"]["type"] == "norton":
+        required.append("tail.resistance")
+    if d["tail"]["type"] == "degenerated":
+        required.append("tail.degeneration")
+    if data.draw(st.booleans()):
+        key = data.draw(st.sampled_from(required))
+        _delete(d, key)
+    else:
+        tables = [""] + [k + "." for k in ("supply", "bias", "pair", "load", "tail", "source",
+                                          "mismatch")]
+        key = data.draw(st.sampled_from(tables)) + data.draw(
+            st.sampled_from(["colour", "tail_curent", "Beta", "resistence", "x"]))
+        _set(d, key, 1.0)
+    assert_refused(*run_cli(capsys, work, d), key)
+
+
+@examples(300)
+@given(d=designs(loads=("resistor",)), how=st.sampled_from(["saturate", "starve", "rails",
+                                                            "mismatch"]))
+def test_an_infeasible_bias_or_range_is_refused_naming_device_or_key(d, how, capsys, work):
+    i_dev = d["bias"]["tail_current"] / 2
+    span = d["supply"]["positive"] - d["supply"]["negative"]
+    if how == "saturate":                         # I·R_L drop larger than the whole supply
+        d["load"]["resistance"] = 2 * span / i_dev
+        names = "pair ("
+    elif how == "starve":                         # tail node pushed to the rail
+        pos = d["pair"]["type"] in ("npn", "nmos")
+        d["bias"]["input_common_mode"] = (d["supply"]["negative"] if pos
+                                          else d["supply"]["positive"])
+        names = "tail"
+    elif how == "rails":
+        d["supply"]["negative"] = d["supply"]["positive"] + 1
+        names = "supply"
+    else:
+        d["mismatch"] = {"load": 1.5, "gm": 0.0}
+        names = "mismatch.load"
+    assert_refused(*run_cli(capsys, work, d), names)
+
+
+@examples(200)
+@given(text=st.text(max_size=200))
+def test_arbitrary_text_is_refused_in_one_line(text, capsys, work):
+    # oracle: DESIGN.md §4 (a file that is not a design: one line, non-zero exit)
+    code, out, err = run_cli(capsys, work, text=text)
+    assert code != 0 and out == ""
+    assert err.count("\n") == 1 and "Traceback" not in err and "internal error" not in err
+
+
+@pytest.mark.parametrize("edit, names", [
+    ('beta = 200', "pair.beta"),
+    ('resistance = "nan"', "tail.resistance"),
+    ('[load]\ntype = "resistor"', "load.type"),
+])
+def test_a_real_subprocess_refuses_a_bad_file_in_one_line(tmp_path, edit, names):
+    # oracle: DESIGN.md §4 (exit non-zero, one stderr line, empty stdout), as a user runs it
+    from freqpair.design import BUILTIN_EXAMPLE
+    bad = {"beta = 200": "beta = -200", 'resistance = "nan"': 'resistance = "nan"',
+           '[load]\ntype = "resistor"': '[load]\ntype = "resistr"'}[edit]
+    text = BUILTIN_EXAMPLE.replace('resistance = "1 M"', bad) if "nan" in edit \
+        else BUILTIN_EXAMPLE.replace(edit, bad)
+    path = tmp_path / "bad.toml"
+    path.write_text(text, encoding="utf-8")
+    proc = subprocess.run([sys.executable, "-m", "freqpair.cli", "analyze", str(path), "--json"],
+                          capture_output=True, text=True, timeout=60)
+    assert proc.returncode != 0 and proc.stdout == ""
+    assert proc.stderr.count("\n") == 1 and names in proc.stderr, proc.stderr
