@@ -64,6 +64,16 @@ class Analysis:
         grid = grid or FrequencyGrid.from_design(self.design)
         return self.responses.at(grid.f_hz)
 
+    def __str__(self) -> str:
+        """The terminal summary (:func:`freqpair.summary.format_summary`)."""
+        from .summary import format_summary
+        return format_summary(self)
+
+    def _repr_html_(self) -> str:
+        """A compact HTML table of the metrics, for notebooks."""
+        from .report import compact_html
+        return compact_html(self)
+
     def to_json(self) -> dict:
         """The DESIGN.md §4 object (SI units; None for infinite/undefined)."""
         tail = self.tail.to_json() if self.tail is not None else {"resistance": None,
@@ -83,7 +93,25 @@ class Analysis:
         }
         if self.a_total_db is not None:
             out["a_total_db"] = _fin(self.a_total_db)
+        from .hand import hand_json
+        from .poles import pole_zero_json
+        out.update(pole_zero_json(self))     # poles_hz, zeros_hz of the primary gain
+        out["hand"] = hand_json(self)
+        if self.design.feedback is not None:
+            out.update(self._loop_json())
         return out
+
+    def loop(self):
+        """Loop results (:class:`freqpair.loop.LoopResult`), None without [feedback]."""
+        from .loop import loop_analysis
+        return loop_analysis(self)
+
+    def _loop_json(self) -> dict:
+        from .loop import LOOP_JSON_KEYS
+        result = self.loop()
+        if result is None:      # zero gain: no loop to speak of
+            return {key: None for key in LOOP_JSON_KEYS}
+        return result.to_json()
 
 
 def _gain_db(value: complex, reference: float) -> float | None:

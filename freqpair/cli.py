@@ -49,6 +49,11 @@ def register_analyze(sub) -> None:
 SUBCOMMANDS = [
     "freqpair.cli:register_analyze",
     "freqpair.cli_fit:register",
+    "freqpair.cli_compensate:register",
+    "freqpair.cli_sweep:register",          # sweep, target
+    "freqpair.cli_montecarlo:register",
+
+    "freqpair.cli_report:register",
 ]
 
 

@@ -67,7 +67,8 @@ class _Bipolar(_Section):
     @model_validator(mode="after")
     def _one_of_tf_ft(self):
         if self.transit_time is not None and self.ft is not None:
-            raise ValueError("give transit_time or ft, not both")
+            raise ValueError(f"ft = {self.ft:g} Hz: give transit_time or ft, not both "
+                             f"(transit_time = {self.transit_time:g} s is also set)")
         return self
 
     @property
@@ -120,8 +121,8 @@ class Supply(_Section):
     @model_validator(mode="after")
     def _ordered(self):
         if not self.positive > self.negative:
-            raise ValueError(f"positive ({self.positive:g} V) must be above negative "
-                             f"({self.negative:g} V)")
+            raise ValueError(f"positive = {self.positive:g} V: must be above "
+                             f"negative = {self.negative:g} V")
         return self
 
 
@@ -210,7 +211,7 @@ class Sweep(_Section):
     @model_validator(mode="after")
     def _ordered(self):
         if not self.stop > self.start:
-            raise ValueError(f"stop ({self.stop:g} Hz) must be above start ({self.start:g} Hz)")
+            raise ValueError(f"stop = {self.stop:g} Hz: must be above start = {self.start:g} Hz")
         return self
 
 
@@ -285,7 +286,9 @@ def _input_repr(value) -> str:
 
 
 def _one_line(exc: ValidationError) -> str:
-    err = exc.errors(include_url=False)[0]
+    errs = exc.errors(include_url=False)
+    # an unknown key (often a misspelt one) explains a "missing" one: report it first
+    err = next((e for e in errs if e["type"] == "extra_forbidden"), errs[0])
     loc = [str(p) for p in err["loc"] if not (isinstance(p, str) and p in _TAGS)]
     key = ".".join(loc)
     kind = err["type"]
@@ -303,7 +306,10 @@ def _one_line(exc: ValidationError) -> str:
         msg = _MESSAGES.get(kind, msg)
     if kind in ("missing",):
         return f"{key}: {msg}"
-    if kind == "value_error" and err["input"] is not None and isinstance(err["input"], dict):
+    if kind == "value_error" and isinstance(err["input"], dict):
+        head = msg.split(" = ", 1)[0]
+        if " = " in msg and head.isidentifier() and head in err["input"]:   # "ft = 1e9: …"
+            return f"{key}.{msg}" if key else msg
         return f"{key or 'design'}: {msg}"
     return f"{key} = {_input_repr(err['input'])}: {msg}"
 
@@ -408,6 +414,15 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent or ".")
     try:
+        # mkstemp creates 0600; give the file the mode a plain open() would
+        # (the old file's mode, else 0666 less the umask)
+        try:
+            mode = os.stat(path).st_mode & 0o777
+        except OSError:
+            umask = os.umask(0o022)
+            os.umask(umask)
+            mode = 0o666 & ~umask
+        os.chmod(tmp, mode)
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()

@@ -1,0 +1,59 @@
+"""Monte Carlo speed: batched engine vs a sample-by-sample loop over analyze().
+
+Usage: python benchmarks/bench_montecarlo.py [--samples 10000] [--points 200] [--loop 40]
+
+The loop is timed on a subset (--loop samples) and extrapolated to --samples;
+both run side by side in this one process. Peak memory: tracemalloc on a separate
+run of one chunk (tracing slows numpy), and the process's peak RSS.
+"""
+from __future__ import annotations
+
+import argparse
+import time
+import resource
+import tracemalloc
+
+import freqpair
+from freqpair.design import BUILTIN_EXAMPLE
+from freqpair.montecarlo import MonteCarloSpec, default_grid, run_montecarlo, sampled_design
+
+
+def main(argv=None) -> dict:
+    ap = argparse.ArgumentParser(description=__doc__)
+    ap.add_argument("--samples", type=int, default=10_000)
+    ap.add_argument("--points", type=int, default=200)
+    ap.add_argument("--loop", type=int, default=40, help="samples timed in the loop")
+    args = ap.parse_args(argv)
+    design = freqpair.design_from_text(BUILTIN_EXAMPLE)
+    spec = MonteCarloSpec.from_dict({"mismatch.load": ("normal", 0.01),
+                                     "mismatch.gm": ("normal", 0.01),
+                                     "tail.capacitance": ("uniform", 0.2)})
+    f = default_grid(design, args.points)
+    t0 = time.perf_counter()
+    res = run_montecarlo(design, spec, args.samples, seed=1, f_hz=f)
+    t_batch = time.perf_counter() - t0
+    rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024     # KiB → MiB (Linux)
+    tracemalloc.start()             # a second, traced run for the peak (tracing slows it)
+    run_montecarlo(design, spec, min(args.samples, 4096), seed=1, f_hz=f)
+    _, peak = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    n_loop = min(args.loop, args.samples)
+    t0 = time.perf_counter()
+    for i in range(n_loop):
+        a = freqpair.analyze(sampled_design(design, spec, i, 1))
+        a.responses.at(f)          # the CMRR curve on the same grid
+    t_loop_each = (time.perf_counter() - t0) / n_loop
+    t_loop = t_loop_each * args.samples
+    print(f"network: full pair (both halves), {res.n} samples x {f.size} frequencies")
+    print(f"batched run_montecarlo : {t_batch:8.3f} s  (DC CMRR, curves, corners, bands)")
+    print(f"loop over analyze()    : {t_loop:8.3f} s  (extrapolated from {n_loop} samples, "
+          f"{1e3 * t_loop_each:.1f} ms each)")
+    print(f"ratio loop/batched     : {t_loop / t_batch:8.1f} x")
+    print(f"peak traced memory     : {peak / 2**20:8.1f} MiB  (one 4096-sample chunk, tracemalloc)")
+    print(f"process peak RSS       : {rss:8.1f} MiB  (resource.ru_maxrss, whole process)")
+    return {"batched_s": t_batch, "loop_s": t_loop, "ratio": t_loop / t_batch,
+            "peak_mib": peak / 2**20}
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,54 @@
+"""Command line: ``freqpair report DESIGN.toml -o report.html`` and
+``freqpair compare A.toml B.toml [...] -o compare.html``."""
+from __future__ import annotations
+
+import sys
+
+__all__ = ["register", "cmd_report", "cmd_compare"]
+
+
+def cmd_report(args) -> int:
+    from .analysis import analyze
+    from .design import load_design
+    from .report import write_report
+    result = analyze(load_design(args.design))
+    write_report(result, args.output)
+    print(f"freqpair: report written to {args.output}", file=sys.stderr)
+    return 0
+
+
+def cmd_compare(args) -> int:
+    from .analysis import analyze
+    from .compare import write_compare
+    from .design import load_design
+    results = [analyze(load_design(path)) for path in args.designs]
+    labels = None
+    if args.labels:
+        labels = [s.strip() for s in args.labels.split(",")]
+        if len(labels) != len(results):
+            from .errors import DesignError
+            raise DesignError(f"--labels = {args.labels!r}: {len(labels)} labels for "
+                              f"{len(results)} designs")
+    write_compare(results, args.output, labels)
+    print(f"freqpair: comparison written to {args.output}", file=sys.stderr)
+    return 0
+
+
+def register(sub) -> None:
+    """Add the ``report`` and ``compare`` subcommands to ``sub``."""
+    p = sub.add_parser("report", help="write a standalone HTML report of a design",
+                       description="Analyse a design and write one standalone HTML file "
+                                   "(works offline): picture of the stage, operating point, "
+                                   "gains, bandwidth, CMRR and corner, poles and zeros, hand "
+                                   "estimates, margins, interactive Bode and CMRR plots.")
+    p.add_argument("design", help="design file (TOML)")
+    p.add_argument("-o", "--output", required=True, metavar="FILE", help="HTML file to write")
+    p.set_defaults(func=cmd_report)
+
+    c = sub.add_parser("compare", help="compare designs in one HTML page",
+                       description="Overlay the curves of several designs and list their "
+                                   "metrics side by side, differences marked.")
+    c.add_argument("designs", nargs="+", metavar="DESIGN", help="design files (TOML)")
+    c.add_argument("-o", "--output", required=True, metavar="FILE", help="HTML file to write")
+    c.add_argument("--labels", metavar="A,B,...", help="column labels, comma-separated")
+    c.set_defaults(func=cmd_compare)

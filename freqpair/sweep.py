@@ -1,0 +1,224 @@
+"""Parameter sweeps: one or two design values over a range → a table of metrics.
+
+Each point is the design with the swept values replaced
+(:func:`freqpair.design.replace_value`, fully validated) and analysed with
+:func:`freqpair.analysis.analyze`. A point that cannot be analysed (e.g. the
+bias saturates) keeps its one-line error in the table instead of stopping the
+sweep. The engine is a pure function returning a frozen :class:`SweepResult`;
+progress is reported through an optional callback (the command line draws a
+bar with it).
+"""
+from __future__ import annotations
+
+import csv
+import io
+import itertools
+import json
+import math
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from .analysis import analyze
+from .design import get_value, replace_value
+from .errors import FreqpairError
+from .metrics import db
+from .targets import METRICS, TargetResult, metric_value, solve_target
+
+__all__ = ["SweepAxis", "SweepResult", "SweepError", "sweep", "solve_target", "TargetResult",
+           "METRICS", "DEFAULT_METRICS"]
+
+DEFAULT_METRICS = ("adm_db", "f3db_hz", "ugf_hz", "cmrr_se_db", "cmrr_db", "cmrr_corner_hz")
+
+
+class SweepError(FreqpairError, ValueError):
+    """A sweep request that cannot run (names the field and the value)."""
+
+
+@dataclass(frozen=True)
+class SweepAxis:
+    """One swept design value.
+
+    Parameters
+    ----------
+    key : str
+        Dotted design key, e.g. ``"tail.capacitance"``.
+    values : tuple of float
+        The values in SI units, in sweep order.
+    """
+
+    key: str
+    values: tuple
+
+    def __post_init__(self):
+        vals = tuple(float(v) for v in self.values)
+        if not vals or not all(math.isfinite(v) for v in vals):
+            raise SweepError(f"{self.key}: need one or more finite values")
+        object.__setattr__(self, "values", vals)
+
+    @classmethod
+    def linear(cls, key: str, start: float, stop: float, n: int) -> "SweepAxis":
+        """``n`` evenly spaced values from ``start`` to ``stop`` inclusive."""
+        if not (isinstance(n, int) and n >= 1):
+            raise SweepError(f"{key}: points = {n!r}: must be a whole number ≥ 1")
+        return cls(key, tuple(np.linspace(start, stop, n)))
+
+    @classmethod
+    def log(cls, key: str, start: float, stop: float, n: int) -> "SweepAxis":
+        """``n`` log-spaced values from ``start`` to ``stop`` (both > 0)."""
+        if not (start > 0 and stop > 0):
+            raise SweepError(f"{key}: log spacing needs start and stop > 0 "
+                             f"(got {start:g}, {stop:g})")
+        if not (isinstance(n, int) and n >= 1):
+            raise SweepError(f"{key}: points = {n!r}: must be a whole number ≥ 1")
+        return cls(key, tuple(np.logspace(math.log10(start), math.log10(stop), n)))
+
+
+@dataclass(frozen=True)
+class SweepResult:
+    """Metrics over a sweep grid.
+
+    Attributes
+    ----------
+    axes : tuple of SweepAxis
+    metrics : tuple of str
+    table : dict of str → ndarray
+        Each metric as a float array of shape ``(len(axis0)[, len(axis1)])``;
+        NaN where the metric is undefined/infinite or the point failed (see
+        ``errors``).
+    errors : dict of tuple → str
+        Grid index → one-line error for points that could not be analysed.
+    f_hz : ndarray or None
+        Frequencies [Hz] of the curves (with ``curves=True``).
+    curves : dict of str → ndarray or None
+        ``adm_db``, ``cmrr_se_db`` (and ``cmrr_db`` if balanced) of shape
+        ``grid shape + (n_f,)``.
+    """
+
+    axes: tuple
+    metrics: tuple
+    table: dict
+    errors: dict
+    at_hz: float | None = None
+    f_hz: np.ndarray | None = field(default=None, repr=False)
+    curves: dict | None = field(default=None, repr=False)
+
+    @property
+    def shape(self) -> tuple:
+        return tuple(len(a.values) for a in self.axes)
+
+    def to_rows(self) -> list[dict]:
+        """One dict per grid point: swept keys, metrics (None if undefined), error."""
+        rows = []
+        for idx in itertools.product(*(range(n) for n in self.shape)):
+            row = {a.key: a.values[i] for a, i in zip(self.axes, idx)}
+            for m in self.metrics:
+                v = float(self.table[m][idx])
+                row[m] = v if math.isfinite(v) else None
+            row["error"] = self.errors.get(idx)
+            rows.append(row)
+        return rows
+
+    def to_csv(self) -> str:
+        """CSV text: a header, one line per point; empty cells for undefined values."""
+        buf = io.StringIO()
+        rows = self.to_rows()
+        w = csv.writer(buf, lineterminator="\n")
+        cols = list(rows[0])
+        w.writerow(cols)
+        for r in rows:
+            w.writerow(["" if r[c] is None else (repr(r[c]) if isinstance(r[c], float) else r[c])
+                        for c in cols])
+        return buf.getvalue()
+
+    def to_json(self) -> dict:
+        """JSON-ready object: axes, metrics, rows (and curves when computed)."""
+        out = {"axes": [{"key": a.key, "values": list(a.values)} for a in self.axes],
+               "metrics": list(self.metrics), "at_hz": self.at_hz, "rows": self.to_rows()}
+        if self.curves is not None:
+            out["f_hz"] = [float(f) for f in self.f_hz]
+            out["curves"] = {
+                name: np.where(np.isfinite(arr), arr, np.nan).reshape(-1, arr.shape[-1])
+                .tolist() for name, arr in self.curves.items()}
+            for name, arr in out["curves"].items():
+                out["curves"][name] = [[v if math.isfinite(v) else None for v in row]
+                                       for row in arr]
+        return out
+
+    def to_json_text(self) -> str:
+        return json.dumps(self.to_json(), allow_nan=False)
+
+
+def sweep(design, axes, metrics=DEFAULT_METRICS, curves: bool = False, f_hz=None,
+          at_hz: float | None = None,
+          progress: Callable[[int], None] | None = None) -> SweepResult:
+    """Analyse ``design`` at every point of a 1-D or 2-D grid of design values.
+
+    Parameters
+    ----------
+    design : Design
+    axes : list of SweepAxis
+        One or two axes (the grid is their outer product).
+    metrics : sequence of str
+        Names from :data:`freqpair.targets.METRICS`.
+    curves : bool
+        Also keep A_dm and CMRR curves on ``f_hz`` (default: the design's sweep).
+    f_hz : array_like, optional
+        Frequencies [Hz] for the curves.
+    at_hz : float, optional
+        Evaluate the frequency-dependent metrics (``cmrr_se_db`` …) at this
+        frequency [Hz] instead of DC.
+    progress : callable, optional
+        Called with 1 after each point.
+
+    Returns
+    -------
+    SweepResult
+    """
+    axes = tuple(axes)
+    if not 1 <= len(axes) <= 2:
+        raise SweepError(f"axes: {len(axes)} given; a sweep has one or two")
+    if len({a.key for a in axes}) != len(axes):
+        raise SweepError(f"axes: {axes[0].key} is swept twice")
+    for m in metrics:
+        if m not in METRICS:
+            raise SweepError(f"metric = {m!r}: unknown (choose from {', '.join(METRICS)})")
+    for a in axes:
+        get_value(design, a.key)            # names a missing key before any work
+    shape = tuple(len(a.values) for a in axes)
+    table = {m: np.full(shape, np.nan) for m in metrics}
+    errors: dict = {}
+    from .frequency import FrequencyGrid
+    grid = None
+    store = None
+    if curves:
+        grid = FrequencyGrid.from_design(design).f_hz if f_hz is None else \
+            FrequencyGrid(np.asarray(f_hz, dtype=float)).f_hz
+        store = {"adm_db": np.full(shape + (grid.size,), np.nan),
+                 "cmrr_se_db": np.full(shape + (grid.size,), np.nan),
+                 "cmrr_db": np.full(shape + (grid.size,), np.nan)}
+    for idx in itertools.product(*(range(n) for n in shape)):
+        try:
+            point = design
+            for a, i in zip(axes, idx):
+                point = replace_value(point, a.key, a.values[i])
+            res = analyze(point)
+            for m in metrics:
+                v = metric_value(res, m, at_hz)
+                table[m][idx] = np.nan if v is None else v
+            if curves:
+                r = res.responses.at(grid)
+                prim = r.get(res.primary)
+                store["adm_db"][idx] = db(prim)
+                store["cmrr_se_db"][idx] = db(r.adm_se) - db(r.acm_se)
+                if r.adm is not None:
+                    store["cmrr_db"][idx] = db(r.adm) - db(r.acm_dm)
+        except FreqpairError as exc:
+            errors[idx] = str(exc)
+        if progress is not None:
+            progress(1)
+    table = {m: np.where(np.isfinite(v), v, np.nan) for m, v in table.items()}
+    if store is not None and np.all(np.isnan(store["cmrr_db"])):
+        del store["cmrr_db"]
+    return SweepResult(axes, tuple(metrics), table, errors, at_hz, grid, store)

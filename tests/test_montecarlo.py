@@ -1,0 +1,148 @@
+"""Monte Carlo mismatch: batched engine against single analyses and textbook statistics."""
+import json
+import math
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+import freqpair
+from freqpair.design import BUILTIN_EXAMPLE
+from freqpair.errors import FreqpairError
+from freqpair.montecarlo import MonteCarloSpec, Spread, run_montecarlo, sampled_design
+
+SPEC = MonteCarloSpec.from_dict({"mismatch.load": ("normal", 0.01),
+                                 "mismatch.gm": ("normal", 0.01),
+                                 "tail.capacitance": ("uniform", 0.2),
+                                 "tail.resistance": ("normal", 0.05),
+                                 "load.capacitance": ("normal", 0.05)})
+F = np.logspace(1, 9, 41)
+
+
+@pytest.fixture(scope="module")
+def design():
+    return freqpair.design_from_text(BUILTIN_EXAMPLE)
+
+
+@pytest.fixture(scope="module")
+def run(design):
+    return run_montecarlo(design, SPEC, 64, seed=7, f_hz=F, chunk=64)
+
+
+def test_batched_samples_match_single_analyses_of_the_same_sampled_designs(design, run):
+    # oracle: freqpair.analyze on the sampled design (independent QZ path, fresh network)
+    for i in (0, 13, 63):
+        a = freqpair.analyze(sampled_design(design, SPEC, i, 7))
+        r = a.responses.at(F)
+        assert run.cmrr_se_dc_db[i] == pytest.approx(a.cmrr_se_db, rel=1e-9)
+        assert run.cmrr_dc_db[i] == pytest.approx(a.cmrr_db, rel=1e-9)
+        assert run.corner_hz[i] == pytest.approx(a.cmrr_corner_hz, rel=1e-9)
+        cse = 20 * np.log10(np.abs(r.adm_se / r.acm_se))
+        np.testing.assert_allclose(run.cmrr_se_db_f[i], cse, rtol=1e-9)
+        # balanced CMRR: A_cm-dm is a difference of two nearly equal outputs; both solvers
+        # carry rounding of order 1e-13·|A_cm,se|, so compare the gain on that scale
+        acm_dm = np.abs(r.adm) / 10 ** (run.cmrr_db_f[i] / 20)
+        np.testing.assert_allclose(acm_dm, np.abs(r.acm_dm), rtol=0,
+                                   atol=1e-9 * np.abs(r.acm_se).max())
+
+
+def test_same_seed_gives_identical_results_and_chunk_size_does_not_matter(design, run):
+    # common practice: reproducibility contract (per-sample keyed random streams)
+    again = run_montecarlo(design, SPEC, 64, seed=7, f_hz=F, chunk=5)
+    np.testing.assert_array_equal(again.values["mismatch.load"], run.values["mismatch.load"])
+    np.testing.assert_allclose(again.cmrr_se_db_f, run.cmrr_se_db_f, rtol=1e-12)
+    np.testing.assert_allclose(again.corner_hz, run.corner_hz, rtol=1e-12)
+    other = run_montecarlo(design, SPEC, 8, seed=8, f_hz=F)
+    assert not np.array_equal(other.values["mismatch.load"], run.values["mismatch.load"][:8])
+
+
+def test_a_sample_does_not_depend_on_the_run_length(design, run):
+    # common practice: sample i is keyed by (seed, key, i), not by n
+    short = run_montecarlo(design, SPEC, 10, seed=7, f_hz=F)
+    np.testing.assert_array_equal(short.values["tail.capacitance"],
+                                  run.values["tail.capacitance"][:10])
+
+
+def _ideal_pair():
+    text = BUILTIN_EXAMPLE.replace("beta = 200", "beta = 1e7").replace(
+        "early_voltage = 80", "early_voltage = 1e7").replace('capacitance = "2 pF"',
+                                                             "capacitance = 0")
+    return freqpair.design_from_text(text.replace("load = 0.01", "load = 0.0"))
+
+
+def test_common_mode_to_differential_gain_spread_matches_small_mismatch_formula():
+    # oracle: textbook small-mismatch result (Gray, Hurst, Lewis & Meyer, ch. 3, resistor-
+    # loaded pair, from memory): A_cm-dm ≈ −δ·g_m·R_L/(1 + 2·g_m·R_tail), linear in δ;
+    # with δ ~ N(0, σ): mean 0, standard deviation σ·g_m·R_L/(1 + 2·g_m·R_tail).
+    d = _ideal_pair()
+    n, sigma = 4000, 0.01
+    res = run_montecarlo(d, MonteCarloSpec.from_dict({"mismatch.load": ("normal", sigma)}),
+                         n, seed=3, f_hz=[1e3])
+    gm = freqpair.analyze(d).operating_point.small_signal.gm
+    rl, rt = 10e3, 1e6
+    sd = sigma * gm * rl / (1 + 2 * gm * rt)
+    x = res.dc_acm_dm.real
+    assert abs(x.mean()) < 4 * sd / math.sqrt(n)                 # 4 standard errors
+    assert x.std(ddof=1) == pytest.approx(sd, rel=4 / math.sqrt(2 * n))
+    # per sample the ratio to δ follows the formula to first order in δ
+    np.testing.assert_allclose(-x / res.values["mismatch.load"], gm * rl / (1 + 2 * gm * rt),
+                               rtol=2e-2)
+    # median balanced CMRR = (1 + 2 g_m R_tail)/(0.6745 σ) (median of |N(0, σ)|)
+    med = (1 + 2 * gm * rt) / (0.6745 * sigma)
+    assert 10 ** (np.median(res.cmrr_dc_db) / 20) == pytest.approx(med, rel=0.06)
+
+
+def test_yield_counts_samples_meeting_the_spec(run):
+    # oracle: direct count (common practice definition of yield)
+    k = 20
+    col = run.cmrr_se_db_f[:, k]
+    spec = float(np.median(col))
+    assert run.yield_fraction(spec, F[k]) == pytest.approx(np.mean(col >= spec))
+    with pytest.raises(FreqpairError, match="not on the Monte Carlo grid"):
+        run.yield_fraction(70, 1.234e5)
+
+
+def test_bands_are_ordered_percentiles_of_the_sample_curves(run):
+    # oracle: numpy.percentile on the same per-sample curves (common practice)
+    np.testing.assert_allclose(run.band_cmrr_se_db[1], np.percentile(run.cmrr_se_db_f, 50, axis=0))
+    assert np.all(run.band_cmrr_se_db[0] <= run.band_cmrr_se_db[2])
+
+
+def test_bad_spreads_are_one_line_errors(design):
+    # common practice: bad input names the field and the value
+    with pytest.raises(FreqpairError, match="bias.tail_current: cannot be spread"):
+        MonteCarloSpec.from_dict({"bias.tail_current": ("normal", 0.1)})
+    with pytest.raises(FreqpairError, match="kind = 'gauss'"):
+        Spread("gauss", 0.1)
+    wide = MonteCarloSpec.from_dict({"tail.resistance": ("normal", 2.0)})
+    with pytest.raises(FreqpairError, match="tail.resistance: sample"):
+        run_montecarlo(design, wide, 200, seed=1, f_hz=F)
+
+
+def test_cli_montecarlo_prints_json_with_bands_and_yield(tmp_path):
+    # common practice: one JSON object on stdout, nothing else; no progress bar off a TTY
+    out = subprocess.run([sys.executable, "-m", "freqpair.cli", "montecarlo",
+                          "examples/npn_resistor_rc_tail.toml", "-n", "50", "--points", "20",
+                          "--spread", "mismatch.load=normal:1%", "--spec", "70@1M", "--json",
+                          "--csv", str(tmp_path / "bands.csv")],
+                         capture_output=True, text=True, cwd=str(__import__("pathlib").Path(
+                             __file__).parent.parent))
+    assert out.returncode == 0, out.stderr
+    obj = json.loads(out.stdout)
+    assert obj["n_samples"] == 50 and 0 <= obj["yield"]["fraction"] <= 1
+    assert set(obj["band_cmrr_se_db"]) == {"p5", "p50", "p95"}
+    assert out.stderr == ""
+    assert (tmp_path / "bands.csv").read_text().startswith("frequency_hz,")
+
+
+def test_benchmark_smoke_runs_at_tiny_size():
+    # common practice: the benchmark script runs (no timing asserts)
+    import importlib.util
+    import pathlib
+    path = pathlib.Path(__file__).parent.parent / "benchmarks" / "bench_montecarlo.py"
+    spec = importlib.util.spec_from_file_location("bench_montecarlo", path)
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    out = mod.main(["--samples", "20", "--points", "10", "--loop", "2"])
+    assert out["ratio"] > 0

@@ -1,0 +1,118 @@
+"""Sweeps and design targets: agreement with single analyses, re-analysed targets."""
+import json
+import subprocess
+import sys
+import pathlib
+
+import numpy as np
+import pytest
+
+import freqpair
+from freqpair.design import BUILTIN_EXAMPLE
+from freqpair.errors import FreqpairError
+from freqpair.sweep import SweepAxis, solve_target, sweep
+
+ROOT = pathlib.Path(__file__).parent.parent
+
+
+@pytest.fixture(scope="module")
+def design():
+    return freqpair.design_from_text(BUILTIN_EXAMPLE)
+
+
+def test_one_dimensional_sweep_agrees_point_by_point_with_single_analyses(design):
+    # oracle: freqpair.analyze on the modified design (replace_value), point by point
+    ax = SweepAxis.log("tail.capacitance", 1e-13, 1e-10, 3)
+    res = sweep(design, [ax], curves=True, f_hz=[1e3, 1e5])
+    for i, c in enumerate(ax.values):
+        a = freqpair.analyze(freqpair.replace_value(design, "tail.capacitance", c))
+        assert res.table["cmrr_corner_hz"][i] == a.cmrr_corner_hz
+        assert res.table["f3db_hz"][i] == a.f3db_hz
+        r = a.responses.at([1e3, 1e5])
+        np.testing.assert_allclose(res.curves["cmrr_se_db"][i],
+                                   20 * np.log10(np.abs(r.adm_se / r.acm_se)), rtol=1e-12)
+
+
+def test_two_dimensional_sweep_keeps_errors_per_point(design):
+    # oracle: the bias rule of DESIGN.md §2 (V_CE < 0.2 V is saturation) on a hand
+    # calculation: 3 mA tail, 10 k loads, 12 V rail → V_C < 0 → saturated
+    res = sweep(design, [SweepAxis("bias.tail_current", (1e-3, 3e-3)),
+                         SweepAxis("tail.capacitance", (1e-12, 2e-12))])
+    rows = res.to_rows()
+    assert len(rows) == 4
+    assert rows[0]["error"] is None and rows[0]["cmrr_se_db"] is not None
+    assert "saturated" in rows[3]["error"] and rows[3]["cmrr_se_db"] is None
+    a = freqpair.analyze(freqpair.replace_value(freqpair.replace_value(
+        design, "bias.tail_current", 1e-3), "tail.capacitance", 2e-12))
+    assert rows[1]["cmrr_se_db"] == a.cmrr_se_db
+
+
+def test_linear_and_log_axes_space_values_as_named(design):
+    # oracle: numpy.linspace / numpy.logspace definitions (common practice)
+    assert SweepAxis.linear("k", 1, 3, 3).values == (1.0, 2.0, 3.0)
+    np.testing.assert_allclose(SweepAxis.log("k", 1, 100, 3).values, (1, 10, 100))
+    with pytest.raises(FreqpairError, match="log spacing"):
+        SweepAxis.log("k", 0, 1, 3)
+
+
+def test_unknown_key_or_metric_is_a_one_line_error(design):
+    # common practice: bad input names the field
+    with pytest.raises(FreqpairError, match="tail.capacitence"):
+        sweep(design, [SweepAxis("tail.capacitence", (1e-12,))])
+    with pytest.raises(FreqpairError, match="metric = 'cmrr'"):
+        sweep(design, [SweepAxis("tail.capacitance", (1e-12,))], metrics=("cmrr",))
+
+
+def test_target_largest_tail_capacitance_meets_cmrr_bound_on_reanalysis(design):
+    # oracle: re-analysis with freqpair.analyze of the returned design; the bound holds at
+    # the value and fails just beyond it (relative step 1e-6)
+    t = solve_target(design, "tail.capacitance", "cmrr_se_db", 80.0, "min", (1e-13, 1e-10),
+                     at_hz=1e5)
+    assert t.met and t.feasible == "below"
+    assert t.metric_value == pytest.approx(80.0, abs=1e-6) and t.metric_value >= 80.0
+    beyond = freqpair.analyze(freqpair.replace_value(design, "tail.capacitance",
+                                                     t.value * (1 + 1e-6)))
+    r = beyond.responses.at([1e5])
+    assert 20 * np.log10(abs(r.adm_se[0] / r.acm_se[0])) < 80.0
+
+
+def test_target_smallest_tail_current_for_a_bandwidth(design):
+    # oracle: re-analysis; f_3dB rises as the tail current falls here (10 k loads, Miller)
+    t = solve_target(design, "bias.tail_current", "f3db_hz", 2e6, "min", (1e-4, 1e-3))
+    a = freqpair.analyze(freqpair.replace_value(design, "bias.tail_current", t.value))
+    assert t.met and a.f3db_hz >= 2e6
+    assert a.f3db_hz == pytest.approx(2e6, rel=1e-6)
+
+
+def test_unreachable_target_says_cannot_reach_within_range(design):
+    # common practice: an infeasible request is one clear line
+    with pytest.raises(FreqpairError, match=r"cannot reach f3db_hz ≥ 2e\+10 .* within"):
+        solve_target(design, "bias.tail_current", "f3db_hz", 2e10, "min", (1e-4, 1e-3))
+
+
+def test_cli_sweep_writes_csv_and_json(tmp_path):
+    # common practice: CSV header + one line per point; JSON parses
+    cmd = [sys.executable, "-m", "freqpair.cli", "sweep", "examples/npn_resistor_rc_tail.toml",
+           "--vary", "tail.capacitance=1p:100p:3:log", "--metrics", "cmrr_corner_hz"]
+    out = subprocess.run(cmd, capture_output=True, text=True, cwd=ROOT)
+    assert out.returncode == 0, out.stderr
+    lines = out.stdout.strip().splitlines()
+    assert lines[0] == "tail.capacitance,cmrr_corner_hz,error" and len(lines) == 4
+    out = subprocess.run(cmd + ["--out", str(tmp_path / "s.json")], capture_output=True,
+                         text=True, cwd=ROOT)
+    assert json.loads((tmp_path / "s.json").read_text())["rows"][2]["tail.capacitance"] == \
+        pytest.approx(1e-10)
+    bad = subprocess.run(cmd[:5] + ["--vary", "tail.capacitance=1p:2p"], capture_output=True,
+                         text=True, cwd=ROOT)
+    assert bad.returncode == 2 and bad.stdout == "" and len(bad.stderr.splitlines()) == 1
+
+
+def test_cli_target_reports_the_reanalysed_value():
+    # oracle: re-analysis inside the command; exit status 0 when met (common practice)
+    out = subprocess.run([sys.executable, "-m", "freqpair.cli", "target",
+                          "examples/npn_resistor_rc_tail.toml", "--vary",
+                          "tail.capacitance=0.1p:100p", "--metric", "cmrr_se_db", "--at", "100k",
+                          "--min", "80", "--json"], capture_output=True, text=True, cwd=ROOT)
+    assert out.returncode == 0, out.stderr
+    obj = json.loads(out.stdout)
+    assert obj["met"] and obj["metric_value"] >= 80
