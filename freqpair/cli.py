@@ -52,8 +52,8 @@ SUBCOMMANDS = [
     "freqpair.cli_compensate:register",
     "freqpair.cli_sweep:register",          # sweep, target
     "freqpair.cli_montecarlo:register",
-
     "freqpair.cli_report:register",
+    "freqpair.cli_app:register",
 ]
 
 

@@ -60,7 +60,11 @@ def parse_si(value, *, field: str, unit: str = "none") -> float:
     if isinstance(value, str):
         text = value.strip()
         try:
-            q = Quantity(text)
+            if unit == "kelvin":   # quantiphy reads a lone "K" as kilo: "300 K" is 300 kelvin
+                with Quantity.prefs(input_sf=Quantity.get_pref("input_sf").replace("K", "")):
+                    q = Quantity(text)
+            else:
+                q = Quantity(text)
         except Exception:
             raise ValueError(f"{lead}not a number with an SI prefix") from None
         allowed = UNIT_ALIASES.get(unit, {""})

@@ -1,0 +1,413 @@
+"""The explorer's view: widgets, figures and one ``update`` wired to all controls.
+
+All numbers come from :func:`freqpair.explore.explore`; this module only
+copies them into data sources. :func:`make_doc` builds a whole document (the
+directory app's ``main.py`` calls it; tests call it on a fresh Document).
+"""
+from __future__ import annotations
+
+import base64
+import binascii
+
+import tomli_w
+from bokeh.layouts import column, row
+from bokeh.models import (Button, ColumnDataSource, CustomJS, DataTable, Div, FileInput,
+                          Select, Slider, TableColumn, TabPanel, Tabs, TextInput)
+
+from ..design import (BUILTIN_EXAMPLE, design_from_text, design_to_dict, load_design,
+                      parse_design, replace_value)
+from ..errors import DesignError, FreqpairError
+from ..explore import (KIND_CHOICES, curves_csv, editable_values, explore, explore_grid,
+                       switch_kind)
+from ..plots import PALETTE, bode_figure, cmrr_figure, pole_zero_figure
+
+__all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS"]
+
+#: Largest design file the app accepts [bytes].
+MAX_FILE_BYTES = 256 * 1024
+#: Frequency points per curve.
+N_POINTS = 500
+SIDEBAR_PX = 410
+
+_SECTIONS = (("Supply & bias", ("supply.", "bias.")), ("Pair", ("pair.",)),
+             ("Load", ("load.",)), ("Tail", ("tail.",)),
+             ("More", ("source.", "mismatch.", "feedback.", "second_stage.", "sweep.")))
+
+_DOWNLOAD_JS = """
+const d = source.data;
+if (!d.text || d.text.length === 0) { return; }
+const blob = new Blob([d.text[0]], {type: d.mime[0]});
+const url = URL.createObjectURL(blob);
+const a = document.createElement("a");
+a.href = url; a.download = d.filename[0];
+document.body.appendChild(a); a.click(); a.remove();
+setTimeout(() => URL.revokeObjectURL(url), 1000);
+"""
+
+_CSS_HEADER = ("background:#1f2a36;color:#fbf8f3;padding:6px 12px;border-radius:4px;"
+               "font-family:sans-serif;")
+
+
+def _empty(columns):
+    return {c: [] for c in columns}
+
+
+class Explorer:
+    """State and callbacks of one browser session.
+
+    Parameters
+    ----------
+    doc : bokeh.document.Document
+    design : Design
+        The design shown first.
+    note : str
+        A message shown at start (e.g. why a design file was not used).
+
+    Attributes
+    ----------
+    design : Design
+        The last design that analysed without error (what is on screen).
+    data : dict
+        The last :func:`~freqpair.explore.explore` result on screen.
+    """
+
+    def __init__(self, doc, design, note: str = ""):
+        self.doc = doc
+        self.design = design
+        self.data = None
+        self._syncing = False
+        self._downloads = 0
+        self.curves = ColumnDataSource(name="curves_source")
+        self.pinned = ColumnDataSource(name="pinned_source")
+        self.corner = ColumnDataSource(_empty(("f_hz", "cmrr_db")), name="corner_source")
+        self.target = ColumnDataSource(_empty(("f_hz", "cmrr_db")), name="target_source")
+        self.target_line = ColumnDataSource(_empty(("f_hz", "cmrr_db")), name="target_line")
+        self.pz = ColumnDataSource(name="pz_source")
+        self.metrics = ColumnDataSource(name="metrics_source")
+        self.hand = ColumnDataSource(name="hand_source")
+        self.downloads = ColumnDataSource(_empty(("filename", "text", "mime", "n")),
+                                          name="downloads")
+        self.downloads.js_on_change("data", CustomJS(args={"source": self.downloads},
+                                                     code=_DOWNLOAD_JS))
+        self.message = Div(name="message", text="", sizing_mode="stretch_width")
+        self.header = Div(name="header", sizing_mode="stretch_width")
+        self.target_input = TextInput(name="cmrr_target", title="CMRR target [dB]",
+                                      value="60", width=120)
+        self.target_input.on_change("value", lambda a, o, n: self.apply(self.design))
+        self.controls = Tabs(name="controls", tabs=[], width=SIDEBAR_PX)
+        self.kind_selects = {}
+        self.texts: dict = {}     # design key -> TextInput
+        self.sliders: dict = {}   # design key -> Slider
+        for section, choices in KIND_CHOICES.items():
+            sel = Select(name=f"kind:{section}", title=f"{section} kind",
+                         options=list(choices), width=120)
+            sel.on_change("value", self._kind_callback(section))
+            self.kind_selects[section] = sel
+        # first result: fills the sources before the figures are built
+        if not self.apply(design):
+            self.design = parse_design(design_to_dict(design))
+        self._build_controls()
+        self.pinned.data = {k: v[:0] for k, v in self.curves.data.items()}
+        if note:
+            self._say(note, bad=True)
+        doc.title = "freqpair explorer"
+        doc.add_root(self._layout())
+
+    # ------------------------------------------------------------- layout
+    def _layout(self):
+        grid = self.curves
+        mag = bode_figure(grid, "magnitude", pinned=self.pinned, height=270)
+        phase = bode_figure(grid, "phase", pinned=self.pinned, x_range=mag.x_range, height=210)
+        phase.legend.visible = False
+        mag.xaxis.axis_label = None
+        balanced = self.data is None or self.data["balanced"]
+        cmrr = cmrr_figure(grid, self.corner, self.target, self.target_line, pinned=self.pinned,
+                           balanced=balanced, height=480)
+        pz = pole_zero_figure(self.pz, height=480)
+        metrics = DataTable(source=self.metrics, name="metrics_table", index_position=None,
+                            columns=[TableColumn(field="quantity", title="quantity", width=260),
+                                     TableColumn(field="value", title="value", width=160)],
+                            width=440, height=520)
+        hand = DataTable(source=self.hand, name="hand_table", index_position=None,
+                         columns=[TableColumn(field="quantity", title="quantity", width=170),
+                                  TableColumn(field="exact", title="exact", width=80),
+                                  TableColumn(field="approx", title="by hand", width=80),
+                                  TableColumn(field="error", title="error", width=60),
+                                  TableColumn(field="method", title="method", width=200)],
+                         width=470, height=520)
+        main = Tabs(name="views", sizing_mode="stretch_width", tabs=[
+            TabPanel(title="Gains", child=column(mag, phase, sizing_mode="stretch_width")),
+            TabPanel(title="CMRR", child=column(cmrr, sizing_mode="stretch_width")),
+            TabPanel(title="Poles & zeros", child=column(pz, sizing_mode="stretch_width")),
+            TabPanel(title="Numbers", child=row(
+                column(Div(text="<b>Exact results</b>"), metrics),
+                column(Div(text="<b>Hand estimate beside exact</b>"), hand))),
+        ])
+        pin = Button(label="Pin curves", name="pin", width=95, button_type="primary")
+        pin.on_click(self.pin)
+        unpin = Button(label="Clear pins", name="clear_pins", width=95)
+        unpin.on_click(self.clear_pins)
+        save = Button(label="Save design", name="save_design", width=95)
+        save.on_click(self.save_design)
+        csv = Button(label="Curves CSV", name="save_csv", width=95)
+        csv.on_click(self.save_csv)
+        upload = FileInput(name="file", accept=".toml", width=SIDEBAR_PX - 20)
+        upload.on_change("value", lambda a, o, n: self.load_file(n, upload.filename))
+        sidebar = column(
+            row(*self.kind_selects.values()),
+            row(self.target_input, Div(text="<small>Type values like <code>4.7 pF</code>, "
+                                       "press Enter; sliders act on release.</small>",
+                                       width=260)),
+            self.controls,
+            Div(text="<b>Compare and files</b>"),
+            row(pin, unpin, save, csv),
+            Div(text="<small>Load a design file (TOML, up to 256 kB):</small>"),
+            upload,
+            width=SIDEBAR_PX)
+        return column(self.header, self.message, row(sidebar, main, sizing_mode="stretch_width"),
+                      sizing_mode="stretch_width", styles={"background": "#f3efe7",
+                                                           "padding": "6px"})
+
+    # ------------------------------------------------------------- controls
+    def _build_controls(self):
+        """(Re)build the value controls from the current design."""
+        active = self.controls.active if self.controls.tabs else 0
+        values = editable_values(self.design)
+        self.texts, self.sliders = {}, {}
+        panels = []
+        for title, prefixes in _SECTIONS:
+            rows = [self._value_row(ev) for ev in values if ev.key.startswith(prefixes)]
+            if title == "More" and self.design.feedback is None:
+                fb = TextInput(name="text:feedback.factor", title="feedback factor β_f "
+                               "(empty: no loop)", value="", width=170)
+                fb.on_change("value", self._text_callback("feedback.factor"))
+                self.texts["feedback.factor"] = fb
+                rows.insert(0, fb)
+            panels.append(TabPanel(title=title, child=column(*rows)))
+        self.controls.tabs = panels
+        self.controls.active = min(active, len(panels) - 1)
+        self._syncing = True
+        try:
+            for section, sel in self.kind_selects.items():
+                sel.value = getattr(self.design, section).type
+        finally:
+            self._syncing = False
+
+    def _value_row(self, ev):
+        text = TextInput(name=f"text:{ev.key}", title=ev.label, value=ev.text, width=150)
+        text.on_change("value", self._text_callback(ev.key))
+        self.texts[ev.key] = text
+        if ev.scale == "int":
+            return text
+        step = 0.01 if ev.scale == "log" else (ev.slider_hi - ev.slider_lo) / 200
+        slider = Slider(name=f"slider:{ev.key}", start=ev.slider_lo, end=ev.slider_hi,
+                        value=min(max(ev.slider_value(), ev.slider_lo), ev.slider_hi),
+                        step=step, show_value=False, title="", width=200,
+                        bar_color=PALETTE["adm"])
+        slider.on_change("value_throttled", self._slider_callback(ev))
+        self.sliders[ev.key] = slider
+        return row(text, column(Div(text="", height=8), slider))
+
+    def _text_callback(self, key):
+        def cb(attr, old, new):
+            if not self._syncing:
+                self.edit(key, new)
+        return cb
+
+    def _slider_callback(self, ev):
+        def cb(attr, old, new):
+            if not self._syncing:
+                self.edit(ev.key, ev.from_slider(new))
+        return cb
+
+    def _kind_callback(self, section):
+        def cb(attr, old, new):
+            if self._syncing or new == getattr(self.design, section).type:
+                return
+            try:
+                design = switch_kind(self.design, section, new)
+            except FreqpairError as exc:
+                self._say(f"{exc} — kept the last good result", bad=True)
+                return
+            if self.apply(design):
+                self._build_controls()
+        return cb
+
+    def _sync_controls(self):
+        """Show the current design's values in the text boxes and sliders."""
+        self._syncing = True
+        try:
+            for ev in editable_values(self.design):
+                text = self.texts.get(ev.key)
+                if text is not None and text.value != ev.text:
+                    text.value = ev.text
+                slider = self.sliders.get(ev.key)
+                if slider is not None:
+                    pos = ev.slider_value()
+                    if not slider.start <= pos <= slider.end:
+                        slider.update(start=ev.slider_lo, end=ev.slider_hi)
+                    slider.value = pos
+        finally:
+            self._syncing = False
+
+    # ------------------------------------------------------------- actions
+    def edit(self, key: str, value) -> bool:
+        """Set one design value (text in engineering notation or a number) and update."""
+        try:
+            if key == "feedback.factor" and str(value).strip() == "":
+                data = design_to_dict(self.design)
+                data.pop("feedback", None)
+                design = parse_design(data)
+            else:
+                if isinstance(value, str):
+                    value = value.strip()
+                design = replace_value(self.design, key, value)
+        except FreqpairError as exc:
+            self._say(f"{exc} — kept the last good result", bad=True)
+            return False
+        had_feedback = self.design.feedback is not None
+        ok = self.apply(design)
+        if ok and (design.feedback is not None) != had_feedback:
+            self._build_controls()
+        return ok
+
+    def _target_db(self) -> float:
+        text = self.target_input.value.strip().removesuffix("dB").strip()
+        try:
+            value = float(text)
+        except ValueError:
+            raise DesignError(f"CMRR target = {self.target_input.value!r}: "
+                              "not a number of dB") from None
+        if not -400 < value < 400:
+            raise DesignError(f"CMRR target = {value:g} dB: outside ±400 dB")
+        return value
+
+    def apply(self, design) -> bool:
+        """Analyse ``design`` and show it; on any error keep the last good result."""
+        try:
+            target = self._target_db()
+            data = explore(design, explore_grid(design, N_POINTS), target_db=target)
+        except FreqpairError as exc:
+            self._say(f"{exc} — kept the last good result", bad=True)
+            return False
+        except Exception as exc:   # never let a session die on one bad value
+            msg = str(exc).splitlines()[0] if str(exc) else ""
+            self._say(f"could not analyse this design ({exc.__class__.__name__}: {msg}) — "
+                      "kept the last good result", bad=True)
+            return False
+        self.design = design
+        self.data = data
+        self._show(data)
+        return True
+
+    def _show(self, data):
+        f = data["curves"]["f_hz"]
+        self.doc.hold("combine")
+        try:
+            self.curves.data = dict(data["curves"])
+            self.corner.data = dict(data["corner"])
+            self.target.data = dict(data["target"])
+            self.target_line.data = {"f_hz": [float(f[0]), float(f[-1])],
+                                     "cmrr_db": [data["target_db"]] * 2}
+            self.pz.data = dict(data["poles_zeros"])
+            self.metrics.data = dict(data["metrics"])
+            self.hand.data = dict(data["hand"])
+            name = self.design.name or "(unnamed design)"
+            self.header.text = (f"<div style='{_CSS_HEADER}'><b>freqpair explorer</b> — "
+                                f"{_html(name)}</div>")
+            self._say(_status(data), bad=False)
+        finally:
+            self.doc.unhold()
+        self._sync_controls()   # outside the hold: its own callbacks are muted here
+
+    def _say(self, text: str, bad: bool):
+        colour, bg = ("#8a1c2b", "#f9e3e5") if bad else ("#1f2a36", "#e4efe9")
+        self.message.text = (f"<div style='padding:4px 10px;background:{bg};color:{colour};"
+                             f"border-radius:3px;font-family:sans-serif'>{_html(text)}</div>")
+        self.message_text = text
+
+    def pin(self):
+        """Keep the current curves as a dashed snapshot."""
+        self.pinned.data = dict(self.curves.data)
+
+    def clear_pins(self):
+        """Remove the pinned snapshot."""
+        self.pinned.data = {k: [] for k in self.curves.data}
+
+    def _download(self, filename, text, mime):
+        self._downloads += 1
+        self.downloads.data = {"filename": [filename], "text": [text], "mime": [mime],
+                               "n": [self._downloads]}
+
+    def save_design(self):
+        """Offer the current design as a TOML file download."""
+        self._download("design.toml", tomli_w.dumps(design_to_dict(self.design)),
+                       "application/toml")
+
+    def save_csv(self):
+        """Offer the current curves as a CSV download."""
+        self._download("curves.csv", curves_csv(self.data["curves"]), "text/csv")
+
+    def load_file(self, b64: str, filename: str | None = None) -> bool:
+        """Load a design from a FileInput value (base64 TOML)."""
+        name = filename or "uploaded file"
+        if not b64:
+            return False
+        if len(b64) * 3 // 4 > MAX_FILE_BYTES:
+            self._say(f"{name}: too large ({len(b64) * 3 // 4 // 1024} kB; the limit is "
+                      f"{MAX_FILE_BYTES // 1024} kB) — kept the last good result", bad=True)
+            return False
+        try:
+            text = base64.b64decode(b64, validate=True).decode("utf-8")
+            design = design_from_text(text, origin=name)
+        except (binascii.Error, UnicodeDecodeError):
+            self._say(f"{name}: not a UTF-8 text file — kept the last good result", bad=True)
+            return False
+        except FreqpairError as exc:
+            self._say(f"{exc} — kept the last good result", bad=True)
+            return False
+        if self.apply(design):
+            self._build_controls()
+            return True
+        return False
+
+
+def _html(text: str) -> str:
+    return (str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;"))
+
+
+def _status(data) -> str:
+    from ..quantities import format_si
+    corner = format_si(data["cmrr_corner_hz"], "Hz")
+    cross = data["target_cross_hz"]
+    return (f"f_3dB {format_si(data['f3db_hz'], 'Hz')} · CMRR corner {corner} · "
+            f"CMRR falls to {data['target_db']:g} dB at "
+            f"{format_si(cross, 'Hz') if cross is not None else '— (not in range)'}")
+
+
+def make_doc(doc, design_path: str | None = None, design=None) -> Explorer:
+    """Build the explorer into ``doc``.
+
+    Parameters
+    ----------
+    doc : bokeh.document.Document
+    design_path : str, optional
+        A design file; default the built-in example.
+    design : Design, optional
+        A design object (takes precedence over ``design_path``).
+
+    Returns
+    -------
+    Explorer
+        The session's state (tests drive it through the document's widgets).
+    """
+    note = ""
+    if design is None:
+        if design_path:
+            try:
+                design = load_design(design_path)
+            except FreqpairError as exc:
+                note = f"{exc} — showing the built-in example instead"
+        if design is None:
+            design = design_from_text(BUILTIN_EXAMPLE, origin="built-in example")
+    return Explorer(doc, design, note)

@@ -1,0 +1,221 @@
+"""Bokeh figures of freqpair's curves, fed from ColumnDataSources (lazy Bokeh import).
+
+The figures read the column names of :func:`freqpair.explore.explore`
+(``f_hz``, ``adm_db``, ``adm_deg``, ...), so the browser app and the HTML
+report draw the same pictures from the same data. Every builder returns a
+plain ``bokeh.plotting.figure`` that the caller may restyle (sizes, titles,
+colours of the renderers it finds by name).
+"""
+from __future__ import annotations
+
+__all__ = ["PALETTE", "GAIN_SERIES", "bode_figure", "cmrr_figure", "pole_zero_figure",
+           "eng_formatter", "style_figure"]
+
+#: freqpair's own colours: deep teal, burnt orange, plum, olive, crimson, amber.
+PALETTE = {
+    "adm": "#0b6e69", "acm_se": "#c2571a", "acm_dm": "#6b4c9a", "cmrr_se": "#0b6e69",
+    "cmrr": "#7d8431", "target": "#b23a48", "corner": "#d99a00", "pinned": "#8c8c8c",
+    "ink": "#1f2a36", "paper": "#fbf8f3", "grid": "#e6dfd3",
+}
+
+#: (column prefix, legend label) of the gain curves.
+GAIN_SERIES = (("adm", "differential gain A_dm"),
+               ("acm_se", "common-mode gain A_cm,se (o2)"),
+               ("acm_dm", "common-mode to differential A_cm-dm"))
+
+_ENG_JS = """
+const v = value;
+if (v == null || !isFinite(v)) { return "—"; }
+if (v === 0) { return "0 " + UNIT; }
+let e = Math.floor(Math.log10(Math.abs(v)) / 3) * 3;
+e = Math.max(-18, Math.min(15, e));
+const p = {"-18": "a", "-15": "f", "-12": "p", "-9": "n", "-6": "µ", "-3": "m", "0": "",
+           "3": "k", "6": "M", "9": "G", "12": "T", "15": "P"}[String(e)];
+let s = (v / Math.pow(10, e)).toPrecision(4);
+if (s.indexOf(".") >= 0) { s = s.replace(/0+$/, "").replace(/\\.$/, ""); }
+return s + " " + p + UNIT;
+"""
+
+
+def eng_formatter(unit: str):
+    """A hover formatter showing a number in engineering notation with ``unit``."""
+    from bokeh.models import CustomJSHover
+    return CustomJSHover(code=_ENG_JS.replace("UNIT", repr(unit)))
+
+
+def style_figure(fig) -> None:
+    """freqpair's look: warm paper background, quiet grid, ink-coloured text."""
+    fig.background_fill_color = PALETTE["paper"]
+    fig.border_fill_color = "#ffffff"
+    fig.outline_line_color = PALETTE["grid"]
+    for grid in (fig.xgrid, fig.ygrid):
+        grid.grid_line_color = PALETTE["grid"]
+    for axis in (fig.xaxis, fig.yaxis):
+        axis.axis_label_text_font_style = "normal"
+        axis.axis_label_text_color = PALETTE["ink"]
+        axis.major_label_text_color = PALETTE["ink"]
+    fig.title.text_color = PALETTE["ink"]
+    fig.title.text_font_size = "13px"
+    fig.toolbar.logo = None
+    if fig.legend:
+        fig.legend.background_fill_alpha = 0.8
+        fig.legend.label_text_font_size = "11px"
+        fig.legend.spacing = 0
+        fig.legend.padding = 4
+        fig.legend.click_policy = "hide"
+
+
+def _freq_figure(title, y_label, x_range=None, **kw):
+    from bokeh.plotting import figure
+    args = dict(x_axis_type="log", title=title, tools="pan,wheel_zoom,box_zoom,reset,save",
+                active_scroll=None, sizing_mode="stretch_width", height=kw.pop("height", 260))
+    if x_range is not None:
+        args["x_range"] = x_range
+    fig = figure(**args, **kw)
+    fig.xaxis.axis_label = "frequency [Hz]"
+    fig.yaxis.axis_label = y_label
+    return fig
+
+
+def bode_figure(source, quantity: str = "magnitude", series=GAIN_SERIES, pinned=None,
+                title: str | None = None, x_range=None, height: int = 260):
+    """Magnitude [dB] or phase [deg] of the gains against frequency (log axis, Hz).
+
+    Parameters
+    ----------
+    source : ColumnDataSource
+        Columns ``f_hz`` and ``<prefix>_db`` / ``<prefix>_deg`` per series.
+    quantity : {"magnitude", "phase"}
+    series : sequence of (prefix, label)
+        Which gains to draw; colours from :data:`PALETTE` by prefix.
+    pinned : ColumnDataSource, optional
+        A snapshot with the same columns, drawn dashed and grey.
+    title : str, optional
+    x_range : Range, optional
+        Share the frequency range with another figure.
+    height : int
+        Pixels.
+
+    Returns
+    -------
+    bokeh.plotting.figure
+        Line renderers are named ``"<prefix>"`` and ``"<prefix>_pinned"``.
+    """
+    from bokeh.models import HoverTool
+    if quantity not in ("magnitude", "phase"):
+        raise ValueError(f"quantity = {quantity!r}: must be 'magnitude' or 'phase'")
+    suffix, label = ("_db", "gain [dB]") if quantity == "magnitude" else ("_deg", "phase [deg]")
+    fig = _freq_figure(title or ("Gains — magnitude" if quantity == "magnitude"
+                                 else "Gains — phase"), label, x_range, height=height)
+    renderers = []
+    for prefix, name in series:
+        col = prefix + suffix
+        if pinned is not None:
+            fig.line("f_hz", col, source=pinned, color=PALETTE["pinned"], line_dash="dashed",
+                     line_width=1.5, legend_label="pinned snapshot", name=prefix + "_pinned")
+        r = fig.line("f_hz", col, source=source, color=PALETTE[prefix], line_width=2,
+                     legend_label=name, name=prefix)
+        renderers.append(r)
+    unit = " dB" if quantity == "magnitude" else "°"
+    tips = [("frequency", "@f_hz{eng}")] + [(name, f"@{p}{suffix}{{0.00}}{unit}")
+                                            for p, name in series]
+    fig.add_tools(HoverTool(renderers=renderers[:1], tooltips=tips, mode="vline",
+                            formatters={"@f_hz": eng_formatter("Hz")}))
+    fig.legend.location = "bottom_left"
+    style_figure(fig)
+    return fig
+
+
+def cmrr_figure(source, corner, target, target_line, pinned=None, balanced=True,
+                title: str = "CMRR against frequency", x_range=None, height: int = 320):
+    """CMRR [dB] against frequency with the corner, the target and its crossing.
+
+    Parameters
+    ----------
+    source : ColumnDataSource
+        Columns ``f_hz``, ``cmrr_se_db`` and ``cmrr_db`` (balanced).
+    corner, target : ColumnDataSource
+        Points ``f_hz``, ``cmrr_db``: the CMRR corner; where CMRR falls to the target.
+    target_line : ColumnDataSource
+        ``f_hz``, ``cmrr_db``: two points drawing the target level.
+    pinned : ColumnDataSource, optional
+        Snapshot drawn dashed.
+    balanced : bool
+        Also draw the balanced CMRR.
+
+    Returns
+    -------
+    bokeh.plotting.figure
+        Renderers named ``"cmrr_se"``, ``"cmrr"``, ``"corner"``, ``"target"``,
+        ``"target_cross"``.
+    """
+    from bokeh.models import HoverTool
+    fig = _freq_figure(title, "CMRR [dB]", x_range, height=height)
+    if pinned is not None:
+        fig.line("f_hz", "cmrr_se_db", source=pinned, color=PALETTE["pinned"],
+                 line_dash="dashed", line_width=1.5, legend_label="pinned snapshot",
+                 name="cmrr_se_pinned")
+    main = fig.line("f_hz", "cmrr_se_db", source=source, color=PALETTE["cmrr_se"], line_width=2,
+                    legend_label="CMRR single-ended (o2)", name="cmrr_se")
+    if balanced:
+        fig.line("f_hz", "cmrr_db", source=source, color=PALETTE["cmrr"], line_width=1.5,
+                 line_alpha=0.8, legend_label="CMRR balanced", name="cmrr")
+    fig.line("f_hz", "cmrr_db", source=target_line, color=PALETTE["target"], line_dash="dotdash",
+             line_width=1.5, legend_label="CMRR target", name="target")
+    c = fig.scatter("f_hz", "cmrr_db", source=corner, marker="diamond", size=13,
+                    color=PALETTE["corner"], line_color=PALETTE["ink"],
+                    legend_label="CMRR corner (−3 dB)", name="corner")
+    t = fig.scatter("f_hz", "cmrr_db", source=target, marker="triangle", size=12,
+                    color=PALETTE["target"], line_color=PALETTE["ink"],
+                    legend_label="falls to target", name="target_cross")
+    fmt = {"@f_hz": eng_formatter("Hz")}
+    fig.add_tools(HoverTool(renderers=[main], mode="vline", formatters=fmt,
+                            tooltips=[("frequency", "@f_hz{eng}"),
+                                      ("CMRR single-ended", "@cmrr_se_db{0.00} dB"),
+                                      ("CMRR balanced", "@cmrr_db{0.00} dB")]))
+    fig.add_tools(HoverTool(renderers=[c, t], formatters=fmt,
+                            tooltips=[("at", "@f_hz{eng}"), ("CMRR", "@cmrr_db{0.00} dB")]))
+    fig.legend.location = "bottom_left"
+    style_figure(fig)
+    return fig
+
+
+def pole_zero_figure(source, title: str = "Poles (×) and zeros (○)", height: int = 320):
+    """Pole-zero map: |Re s|/2π on a log axis [Hz], Im s/2π [Hz]; right half-plane in red.
+
+    Parameters
+    ----------
+    source : ColumnDataSource
+        Columns ``kind`` ("pole"/"zero"), ``re_hz``, ``im_hz``, ``mag_hz``,
+        ``abs_re_hz``, ``half_plane`` ("left"/"right").
+
+    Returns
+    -------
+    bokeh.plotting.figure
+        Renderers named ``"poles"`` and ``"zeros"``.
+    """
+    from bokeh.models import CDSView, GroupFilter, HoverTool
+    from bokeh.plotting import figure
+    from bokeh.transform import factor_cmap
+    fig = figure(x_axis_type="log", title=title, height=height, sizing_mode="stretch_width",
+                 tools="pan,wheel_zoom,box_zoom,reset,save", active_scroll=None)
+    fig.xaxis.axis_label = "|real part| / 2π [Hz]  (decay rate)"
+    fig.yaxis.axis_label = "imaginary part / 2π [Hz]"
+    cmap = factor_cmap("half_plane", [PALETTE["adm"], PALETTE["target"]], ["left", "right"])
+    poles = fig.scatter("abs_re_hz", "im_hz", source=source, marker="x", size=14, line_width=2.5,
+                        color=cmap, view=CDSView(filter=GroupFilter(column_name="kind",
+                                                                    group="pole")),
+                        legend_label="pole", name="poles")
+    zeros = fig.scatter("abs_re_hz", "im_hz", source=source, marker="circle", size=11,
+                        fill_alpha=0, line_width=2, line_color=cmap,
+                        view=CDSView(filter=GroupFilter(column_name="kind", group="zero")),
+                        legend_label="zero (red: right half-plane)", name="zeros")
+    fmt = {"@re_hz": eng_formatter("Hz"), "@im_hz": eng_formatter("Hz"),
+           "@mag_hz": eng_formatter("Hz")}
+    fig.add_tools(HoverTool(renderers=[poles, zeros], formatters=fmt,
+                            tooltips=[("", "@kind, @half_plane half-plane"),
+                                      ("real/2π", "@re_hz{eng}"), ("imag/2π", "@im_hz{eng}"),
+                                      ("|s|/2π", "@mag_hz{eng}")]))
+    fig.legend.location = "top_left"
+    style_figure(fig)
+    return fig

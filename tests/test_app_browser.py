@@ -1,0 +1,76 @@
+"""End-to-end: the real `freqpair app` server in headless Chromium."""
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+import freqpair
+from freqpair.design import BUILTIN_EXAMPLE
+
+from browser_util import console_errors, free_port, make_driver, wait_for_bokeh, wait_until
+
+ROOT = Path(__file__).resolve().parent.parent
+ARTIFACTS = ROOT / "test-artifacts"
+
+CORNER_JS = ("const s = Bokeh.documents[0].get_model_by_name('corner_source');"
+             "return s.data.f_hz.length ? Number(s.data.f_hz[0]) : null;")
+
+
+@pytest.fixture
+def server():
+    port = free_port()
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", "--no-browser",
+                             "--port", str(port)], cwd=ROOT, env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        line = proc.stdout.readline()        # printed once the server listens
+        assert f"127.0.0.1:{port}" in line, proc.stderr.read() if proc.poll() else line
+        yield port, proc
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+        proc.stdout.close()
+        proc.stderr.close()
+
+
+@pytest.mark.browser
+def test_typing_a_tail_capacitance_in_the_page_moves_the_plotted_cmrr_corner(server, tmp_path):
+    port, proc = server
+    driver = make_driver(tmp_path)
+    try:
+        driver.get(f"http://127.0.0.1:{port}/")
+        wait_for_bokeh(driver)
+        before = wait_until(lambda: driver.execute_script(CORNER_JS))
+        driver.execute_script("Bokeh.documents[0].get_model_by_name('text:tail.capacitance')"
+                              ".value = '20 pF';")
+        after = wait_until(lambda: (v := driver.execute_script(CORNER_JS)) != before and v)
+        time.sleep(0.5)   # let the page redraw before the screenshot
+        ARTIFACTS.mkdir(exist_ok=True)
+        driver.save_screenshot(str(ARTIFACTS / "explorer.png"))
+        errors = console_errors(driver)
+    finally:
+        driver.quit()
+    # oracle: freqpair.analyze on the same edit (the page must show what the library says)
+    base = freqpair.design_from_text(BUILTIN_EXAMPLE)
+    want = freqpair.analyze(freqpair.replace_value(base, "tail.capacitance", "20 pF"))
+    assert after == pytest.approx(want.cmrr_corner_hz, rel=1e-9)
+    assert before == pytest.approx(freqpair.analyze(base).cmrr_corner_hz, rel=1e-9)
+    assert errors == []
+
+
+@pytest.mark.browser
+def test_app_server_stops_cleanly_on_sigterm(server):
+    port, proc = server
+    proc.terminate()
+    assert proc.wait(timeout=10) == 0       # common practice: clean exit status
+    assert "stopped" in proc.stderr.read()
