@@ -26,7 +26,8 @@ from .errors import DesignError
 from .quantities import parse_si
 
 __all__ = ["Design", "load_design", "parse_design", "design_from_text", "design_to_dict",
-           "save_design", "replace_value", "get_value", "BUILTIN_EXAMPLE"]
+           "save_design", "replace_value", "get_value", "BUILTIN_EXAMPLE",
+           "load_design_table", "save_design_table", "atomic_write_text", "atomic_write_bytes"]
 
 
 def _si(value, unit):
@@ -366,6 +367,38 @@ def design_to_dict(design: Design) -> dict[str, Any]:
 def save_design(design: Design, path: str | os.PathLike) -> None:
     """Write a design as TOML, atomically (temporary file, then rename)."""
     atomic_write_text(path, tomli_w.dumps(design_to_dict(design)))
+
+
+def load_design_table(path: str | os.PathLike) -> dict[str, Any]:
+    """Read a design file as the plain TOML table the user wrote (strings such as
+    ``"2.2 pF"`` kept), after checking that it is a valid design."""
+    path = Path(path)
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise DesignError(f"{path}: cannot read design file ({exc.__class__.__name__})") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise DesignError(f"{path}: not valid TOML: {exc}") from None
+    parse_design(data)
+    return data
+
+
+def save_design_table(data: dict[str, Any], path: str | os.PathLike) -> Design:
+    """Validate a design table and write it as TOML, atomically, exactly as given.
+
+    Use this (with :func:`load_design_table`) to save a design the user edited:
+    the values keep the user's own spelling (``"10 k"`` stays ``"10 k"``);
+    :func:`save_design` writes SI floats instead. Nothing is written when the
+    table is not a valid design.
+
+    Returns
+    -------
+    Design
+        The validated design.
+    """
+    design = parse_design(data)
+    atomic_write_text(path, tomli_w.dumps(data))
+    return design
 
 
 def atomic_write_text(path: str | os.PathLike, text: str) -> None:

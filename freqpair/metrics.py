@@ -77,6 +77,13 @@ def lowest_crossing(curve_db: Callable[[np.ndarray], np.ndarray], level_db: floa
     def g(x):
         return float(curve_db(np.array([10.0 ** x]))[0] - level_db)
 
-    x = brentq(g, math.log10(grid_hz[i]), math.log10(grid_hz[i + 1]), xtol=1e-14, rtol=1e-14,
-               maxiter=200)
+    a, b = math.log10(grid_hz[i]), math.log10(grid_hz[i + 1])
+    ga, gb = g(a), g(b)
+    if ga * gb > 0:
+        # the grid and the exact re-evaluation disagree in sign only by rounding
+        # (a curve lying on the level within ~1e-12 dB): the nearer end is the answer
+        return float(grid_hz[i] if abs(ga) <= abs(gb) else grid_hz[i + 1])
+    if ga == 0 or gb == 0:
+        return float(grid_hz[i] if ga == 0 else grid_hz[i + 1])
+    x = brentq(g, a, b, xtol=1e-14, rtol=1e-14, maxiter=200)
     return 10.0 ** x

@@ -221,7 +221,9 @@ class Network:
     def solver(self, outputs: np.ndarray) -> "FrequencySolver":
         """A :class:`FrequencySolver` for the outputs given as rows of ``outputs``."""
         G, C, B = self.matrices()
-        return FrequencySolver(G, C, B, np.atleast_2d(outputs))
+        solver = FrequencySolver(G, C, B, np.atleast_2d(outputs))
+        solver.names = self.node_names + [f"i({n})" for n in self.input_names]
+        return solver
 
 
 @dataclass(frozen=True)
@@ -259,6 +261,8 @@ class FrequencySolver:
         self.G, self.C, self.B, self.L = G, C, B, L
         self.n = G.shape[0]
         self._red: _Reduced | None = None
+        #: names of the unknowns (set by :meth:`Network.solver`), for messages
+        self.names: list[str] | None = None
 
     @property
     def s0(self) -> float:
@@ -289,8 +293,10 @@ class FrequencySolver:
         except (ValueError, np.linalg.LinAlgError) as exc:
             raise NetworkError(f"cannot solve the network at DC ({exc})") from None
         if np.any(np.abs(np.diag(lu[0])) <= 1e-14 * np.abs(self.G).max()):
-            raise NetworkError("the network has no DC solution (a node has no DC path; "
-                               "e.g. a node connected only through capacitors)")
+            raise NetworkError("the network has no DC solution: "
+                               f"{self._floating_at_dc()} has no DC path (e.g. a node "
+                               "connected only through capacitors, or an infinite r_o "
+                               "from lambda = 0 as its only load)")
         # np.linalg.solve, not lu_solve: the same LU, but scipy's lu_solve was measured
         # at 5–9 ms (vs 0.03 ms) for an 11-node G when BLAS threads compete for cores
         return self.L @ np.linalg.solve(self.G, self.B)
@@ -325,6 +331,14 @@ class FrequencySolver:
             bad = s[~np.all(np.isfinite(out), axis=(1, 2))][0]
             raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")
         return out
+
+    def _floating_at_dc(self) -> str:
+        """Name of the unknown that dominates the null vector of G (for messages)."""
+        _, _, vh = np.linalg.svd(self.G)
+        k = int(np.argmax(np.abs(vh[-1])))
+        if self.names is not None and k < len(self.names):
+            return f"node {self.names[k]!r}"
+        return f"unknown {k}"
 
     def _back_substitute(self, red: "_Reduced", sp: np.ndarray, rhs: np.ndarray) -> np.ndarray:
         """Solve (AA + sp·BB)·y = rhs for every frequency: n vectorised steps."""

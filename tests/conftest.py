@@ -17,3 +17,21 @@ def builtin_design():
 @pytest.fixture(params=EXAMPLES, ids=[p.stem for p in EXAMPLES])
 def example_path(request):
     return request.param
+
+
+# ---------------------------------------------------------------- hypothesis profiles
+# "ci" (default): derandomized, enough examples that the property tests run
+# >= 2,000 in total. "deep": 10,000 examples per property test, fresh random
+# examples each run; select with FREQPAIR_HYPOTHESIS_PROFILE=deep.
+import os as _os
+
+from hypothesis import HealthCheck as _HealthCheck
+from hypothesis import settings as _settings
+
+_settings.register_profile(
+    "ci", max_examples=250, deadline=None, derandomize=True, database=None,
+    suppress_health_check=[_HealthCheck.too_slow, _HealthCheck.data_too_large])
+_settings.register_profile(
+    "deep", max_examples=10_000, deadline=None,
+    suppress_health_check=[_HealthCheck.too_slow, _HealthCheck.data_too_large])
+_settings.load_profile(_os.environ.get("FREQPAIR_HYPOTHESIS_PROFILE", "ci"))
