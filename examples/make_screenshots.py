@@ -13,8 +13,8 @@ import tempfile
 import time
 
 HERE = pathlib.Path(__file__).resolve().parent
-SCENARIOS = ["npn_resistor_rc_tail", "nmos_resistor_ideal_tail", "npn_mismatched_pair",
-             "nmos_adc_driver_loop"]
+#: every design file in examples/ that has a scenario script beside it
+SCENARIOS = sorted(p.stem for p in HERE.glob("*.toml") if p.with_suffix(".py").exists())
 
 
 def screenshot(html_path: pathlib.Path, png_path: pathlib.Path, width=1200, height=1700):
