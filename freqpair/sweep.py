@@ -24,7 +24,7 @@ from .analysis import analyze
 from .design import get_value, replace_value
 from .errors import FreqpairError
 from .metrics import db
-from .targets import METRICS, TargetResult, metric_value, solve_target
+from .targets import LOOP_METRICS, METRICS, TargetResult, metric_value, solve_target
 
 __all__ = ["SweepAxis", "SweepResult", "SweepError", "sweep", "solve_target", "TargetResult",
            "METRICS", "DEFAULT_METRICS"]
@@ -191,6 +191,8 @@ def sweep(design, axes, metrics=DEFAULT_METRICS, curves: bool = False, f_hz=None
     for m in metrics:
         if m not in METRICS:
             raise SweepError(f"metric = {m!r}: unknown (choose from {', '.join(METRICS)})")
+        if m in LOOP_METRICS and design.feedback is None:
+            raise SweepError(f"metric = {m!r}: needs a [feedback] table in the design")
     for a in axes:
         get_value(design, a.key)            # names a missing key before any work
     shape = tuple(len(a.values) for a in axes)

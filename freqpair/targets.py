@@ -27,7 +27,14 @@ METRICS = {
     "f3db_hz": math.inf, "ugf_hz": -math.inf,
     "cmrr_se_db": math.inf, "cmrr_db": math.inf, "cmrr_textbook_db": math.inf,
     "cmrr_corner_hz": math.inf,
+    # loop metrics (designs with [feedback]); an infinite margin is "always met"
+    "phase_margin_deg": math.inf, "gain_margin_db": math.inf, "crossover_hz": -math.inf,
+    "closed_loop_f3db_hz": math.inf, "peaking_db": -math.inf, "overshoot_pct": -math.inf,
+    "settling_time_s": math.inf,
 }
+#: metrics read from the loop analysis (need a [feedback] table)
+LOOP_METRICS = ("phase_margin_deg", "gain_margin_db", "crossover_hz", "closed_loop_f3db_hz",
+                "peaking_db", "overshoot_pct", "settling_time_s")
 #: metrics that can be read at a frequency (``at_hz``) instead of DC
 AT_FREQUENCY = ("adm_db", "acm_se_db", "cmrr_se_db", "cmrr_db")
 
@@ -45,7 +52,13 @@ def metric_value(result, metric: str, at_hz: float | None = None) -> float | Non
     if metric not in METRICS:
         raise TargetError(f"metric = {metric!r}: unknown (choose from {', '.join(METRICS)})")
     if at_hz is None:
-        v = getattr(result, metric)
+        if metric in LOOP_METRICS:
+            if result.design.feedback is None:
+                raise TargetError(f"metric = {metric!r}: needs a [feedback] table in the design")
+            loop = result.loop()
+            v = None if loop is None else getattr(loop, metric)
+        else:
+            v = getattr(result, metric)
         return None if v is None or not math.isfinite(v) else float(v)
     if metric not in AT_FREQUENCY:
         raise TargetError(f"metric = {metric!r}: has no value at a frequency "

@@ -116,3 +116,28 @@ def test_cli_target_reports_the_reanalysed_value():
     assert out.returncode == 0, out.stderr
     obj = json.loads(out.stdout)
     assert obj["met"] and obj["metric_value"] >= 80
+
+
+def test_phase_margin_is_a_sweep_metric_equal_to_the_loop_analysis():
+    # oracle: a single loop analysis of the same design (itself checked against
+    # python-control stability_margins in test_loop.py); sweeps agree point by point
+    from freqpair.loop import loop_analysis
+    d = freqpair.load_design(ROOT / "examples" / "two_stage_miller_loop.toml")
+    values = [4e-12, 16e-12]
+    res = sweep(d, [SweepAxis("second_stage.miller_capacitance", values)],
+                metrics=("phase_margin_deg", "overshoot_pct"))
+    rows = res.to_rows()
+    assert len(rows) == 2
+    for row, cc in zip(rows, values):
+        a = freqpair.analyze(freqpair.replace_value(d, "second_stage.miller_capacitance", cc))
+        lr = loop_analysis(a)
+        assert row["phase_margin_deg"] == pytest.approx(lr.phase_margin_deg, rel=1e-12)
+        assert row["overshoot_pct"] == pytest.approx(lr.overshoot_pct, rel=1e-12)
+    # more Miller capacitance buys phase margin (textbook two-stage compensation)
+    assert rows[1]["phase_margin_deg"] > rows[0]["phase_margin_deg"]
+
+
+def test_loop_metric_without_feedback_is_a_one_line_error():
+    d = freqpair.design_from_text(BUILTIN_EXAMPLE)
+    with pytest.raises(FreqpairError, match=r"phase_margin_deg.*\[feedback\]"):
+        sweep(d, [SweepAxis("tail.capacitance", [1e-12])], metrics=("phase_margin_deg",))
