@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import base64
+import math
 import subprocess
 import sys
 import tomllib
@@ -9,12 +10,15 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+import scipy.constants
+import scipy.linalg
 from bokeh.document import Document
 
 import freqpair
 from freqpair.app import app_dir
 from freqpair.app.view import MAX_FILE_BYTES, make_doc
 from freqpair.design import BUILTIN_EXAMPLE
+from freqpair.poles import response_zpk
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -157,26 +161,128 @@ def test_cmrr_target_moves_the_marked_crossing(app):
     assert "CMRR target" in ex.message_text and "'lots'" in ex.message_text
 
 
-def test_feedback_factor_adds_a_loop_row(app):
+def _row(ex, quantity):
+    rows = dict(zip(ex.metrics.data["quantity"], ex.metrics.data["value"]))
+    assert quantity in rows, sorted(rows)
+    return rows[quantity]
+
+
+def _loop_margins_by_python_control(design):
+    """Phase and gain margin of T = β_f·A·sign from python-control on the exact zpk."""
+    import control
+    an = freqpair.analyze(design)
+    z, p, k = response_zpk(an).zpk()
+    beta = design.feedback.factor
+    tf = control.zpk(z, p, k * beta)
+    sign = 1.0 if np.real(tf(0)) > 0 else -1.0
+    gm, pm, _, _, wpc, _ = control.stability_margins(sign * tf)
+    return pm, 20 * np.log10(gm), wpc / (2 * np.pi)
+
+
+def test_feedback_factor_typed_in_the_app_shows_margins_python_control_agrees_with(app):
     doc, ex = app
     w(doc, "text:feedback.factor").value = "0.05"
     assert ex.design.feedback.factor == 0.05
-    q = ex.metrics.data["quantity"]
-    assert "phase margin" in q or ex.metrics.data["value"][-1] == "not available in this build"
+    pm, _, fc = _loop_margins_by_python_control(ex.design)
+    # oracle: python-control stability_margins on the same loop gain (zpk from the pencil)
+    assert float(_row(ex, "phase margin").rstrip("°")) == pytest.approx(pm, abs=0.06)
+    assert freqpair.parse_si(_row(ex, "loop crossover"), field="crossover", unit="hertz") == pytest.approx(fc, rel=1e-3)
 
 
-def test_feedback_factor_gives_margins_when_the_loop_module_is_there(app):
-    pytest.importorskip("freqpair.loop")
+def test_two_stage_feedback_design_shows_phase_and_gain_margin():
+    doc = Document()
+    ex = make_doc(doc, str(ROOT / "examples" / "two_stage_miller_loop.toml"))
+    assert ex.design.second_stage is not None and ex.design.feedback is not None
+    pm, gm_db, _ = _loop_margins_by_python_control(ex.design)
+    # oracle: python-control stability_margins on T = β_f·A_total (same zpk)
+    assert float(_row(ex, "phase margin").rstrip("°")) == pytest.approx(pm, abs=0.06)
+    assert float(_row(ex, "gain margin").removesuffix(" dB")) == pytest.approx(gm_db, abs=0.06)
+    assert _row(ex, "closed loop stable") == "yes"
+    assert "not available" not in " ".join(ex.metrics.data["value"])
+
+
+def test_hand_table_shows_the_textbook_gain_beside_the_exact_one(app):
     doc, ex = app
-    w(doc, "text:feedback.factor").value = "0.05"
-    assert "phase margin" in ex.metrics.data["quantity"]
+    q = ex.hand.data["quantity"]
+    i = next(k for k, name in enumerate(q) if name.startswith("DC differential gain"))
+    d = ex.design
+    vt = scipy.constants.k * d.bias.temperature / scipy.constants.e
+    ic = d.bias.tail_current / 2 * d.pair.beta / (d.pair.beta + 1)
+    gm, rpi = ic / vt, d.pair.beta * vt / ic
+    r_out = 1 / (1 / d.load.resistance + ic / d.pair.early_voltage)
+    hand = gm * r_out * rpi / (rpi + d.source.resistance + d.pair.base_resistance)
+    # oracle: textbook A_dm = g_m·(R_L∥r_o)·r_π/(r_π+R_s+r_b) (Gray & Meyer §3.5, from
+    # memory), V_T = kT/q from CODATA (scipy.constants) at 300 K
+    shown = float(ex.hand.data["approx"][i].removesuffix(" V/V"))
+    assert abs(shown) == pytest.approx(hand, rel=1e-3)   # 4 digits shown
+    assert len(q) >= 5 and "not available" not in " ".join(ex.hand.data["exact"])
 
 
-def test_hand_table_is_filled_when_the_hand_module_is_there(app):
-    pytest.importorskip("freqpair.hand")
+def test_pole_zero_map_of_a_matched_pair_is_the_half_circuit_without_cancelled_pairs():
+    doc = Document()
+    ex = make_doc(doc, str(ROOT / "examples" / "npn_resistor_rc_tail.toml"))
+    d, ss = ex.design, freqpair.analyze(ex.design).operating_point.small_signal
+    # oracle: hand-written KCL of the differential half circuit (Gray & Meyer §7.2, from
+    # memory): nodes b' and o; the tail sits at AC ground for a balanced drive, so every
+    # tail and common-mode root cancels out of A_dm. Poles: scipy.linalg.eigvals(G, −C).
+    g_in = 1 / (d.source.resistance + d.pair.base_resistance) + 1 / ss.r_in
+    G = np.array([[g_in, 0.0], [ss.gm, 1 / d.load.resistance + 1 / ss.ro]])
+    C = np.array([[ss.c_in + ss.c_fb, -ss.c_fb],
+                  [-ss.c_fb, ss.c_fb + d.load.capacitance + d.pair.ccs]])
+    want_poles = np.sort(np.abs(scipy.linalg.eigvals(G, -C))) / (2 * np.pi)
+    kinds = list(ex.pz.data["kind"])
+    mags = np.asarray(ex.pz.data["mag_hz"])
+    got_poles = np.sort(mags[[k == "pole" for k in kinds]])
+    assert kinds.count("pole") == 2 and kinds.count("zero") == 1
+    np.testing.assert_allclose(got_poles, want_poles, rtol=1e-9)
+    zero = kinds.index("zero")
+    # oracle: the feed-forward zero of C_μ sits at +g_m/C_μ (right half-plane), same source
+    assert ex.pz.data["re_hz"][zero] == pytest.approx(ss.gm / ss.c_fb / (2 * np.pi), rel=1e-9)
+    assert ex.pz.data["half_plane"][zero] == "right"
+
+
+def test_cascode_tail_norton_resistance_matches_the_textbook_cascode():
+    doc = Document()
+    ex = make_doc(doc, str(ROOT / "examples" / "nmos_mirror_load_cascode_tail.toml"))
+    dev, i = ex.design.tail.device, ex.design.bias.tail_current
+    gm = math.sqrt(2 * dev.mobility_cox * dev.width / dev.length * i)
+    ro = 1 / (dev.lambda_ * i)
+    # oracle: cascode output resistance r_o1 + r_o2 + g_m2·r_o1·r_o2, no body effect
+    # (Razavi, Design of Analog CMOS ICs §3.5, from memory)
+    want = 2 * ro + gm * ro * ro
+    assert freqpair.parse_si(_row(ex, "tail resistance (Norton)"), field="R", unit="ohm") == pytest.approx(
+        want, rel=1e-3)
+    assert freqpair.parse_si(_row(ex, "tail capacitance (Norton)"), field="C", unit="farad") > 0.4e-12
+
+
+@pytest.mark.parametrize("kind", ["mirror", "degenerated", "cascode"])
+def test_switching_tail_kind_in_the_app_gives_a_transistor_tail_of_the_pair_polarity(app, kind):
     doc, ex = app
-    assert len(ex.hand.data["quantity"]) >= 1
-    assert ex.hand.data["exact"][0] != "not available in this build"
+    w(doc, "kind:tail").value = kind
+    assert ex.design.tail.type == kind, ex.message_text
+    # oracle: DESIGN.md §3a — tail devices have the pair's polarity
+    assert ex.design.tail.device.type == ex.design.pair.type == "npn"
+    assert "tail.device.beta" in ex.texts
+    r_tail = freqpair.parse_si(_row(ex, "tail resistance (Norton)"), field="R", unit="ohm")
+    ro = ex.design.tail.device.early_voltage / ex.design.bias.tail_current
+    if kind == "mirror":
+        # oracle: simple current-source output resistance r_o = V_A/I_C (Gray & Meyer §4.2)
+        assert r_tail == pytest.approx(ro, rel=1e-3)
+    else:
+        # oracle: common practice — degeneration and cascoding raise R_out well above r_o
+        assert r_tail > 20 * ro
+    w(doc, "text:tail.extra_capacitance").value = "3 pF"     # the new controls work
+    assert ex.design.tail.extra_capacitance == pytest.approx(3e-12)
+
+
+def test_switching_the_pair_to_nmos_keeps_a_transistor_tail_and_swaps_its_device(app):
+    doc, ex = app
+    w(doc, "kind:tail").value = "mirror"
+    w(doc, "kind:pair").value = "nmos"
+    assert ex.design.pair.type == "nmos", ex.message_text
+    # oracle: DESIGN.md §3a — an nmos pair's tail devices are nmos
+    assert ex.design.tail.type == "mirror" and ex.design.tail.device.type == "nmos"
+    assert "tail.device.width" in ex.texts and "tail.device.beta" not in ex.texts
 
 
 def test_explorer_app_ships_inside_the_package():
