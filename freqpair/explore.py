@@ -21,13 +21,14 @@ from .design import Design, design_to_dict, parse_design
 from .errors import DesignError
 from .hand import hand_table
 from .loop import loop_analysis
+from .measured import MeasurementError, overlay
 from .metrics import db, lowest_crossing
 from .poles import response_zpk
 from .quantities import format_si
 from .responses import ZERO_GAIN_RATIO
 
 __all__ = ["explore", "explore_grid", "editable_values", "EditableValue", "switch_kind",
-           "KIND_CHOICES", "curves_csv", "CURVE_COLUMNS"]
+           "KIND_CHOICES", "curves_csv", "CURVE_COLUMNS", "measured_view", "MEASURED_PLOT"]
 
 #: Curve columns of ``explore(...)["curves"]`` in CSV order.
 CURVE_COLUMNS = ("f_hz", "adm_db", "adm_deg", "acm_se_db", "acm_se_deg", "acm_dm_db",
@@ -395,7 +396,8 @@ def _hand_rows(analysis) -> dict:
     return cols
 
 
-def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None) -> dict:
+def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None,
+            measurement=None) -> dict:
     """Every view of the explorer for one design, as plain arrays and rows.
 
     Parameters
@@ -408,6 +410,8 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None) -
         is found on the exact response.
     analysis : Analysis, optional
         A ready :func:`freqpair.analyze` result for ``design``.
+    measurement : freqpair.measured.Measurement, optional
+        A bench measurement to lay over the model (see :func:`measured_view`).
 
     Returns
     -------
@@ -421,7 +425,10 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None) -
         ``{"quantity", "value"}``; ``hand``: ``{"quantity", "exact",
         "approx", "error", "method"}``; scalars ``cmrr_corner_hz``,
         ``target_cross_hz``, ``f3db_hz``, ``ugf_hz``; ``primary`` (name of the
-        gain plotted as A_dm) and ``balanced``.
+        gain plotted as A_dm) and ``balanced``; ``measured``: the
+        :func:`measured_view` of ``measurement`` (None without one) and
+        ``measured_note``: why a given measurement cannot be compared with this
+        design ("" when it can).
 
     Raises
     ------
@@ -465,6 +472,13 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None) -
         "f_hz": [], "cmrr_db": []}
     loop = loop_analysis(analysis) if analysis.design.feedback is not None else None
     rows = _rows_metrics(analysis, float(target_db), cross, loop)
+    measured, note = None, ""
+    if measurement is not None:
+        try:
+            measured = measured_view(analysis, measurement)
+        except MeasurementError as exc:
+            note = str(exc)
+        rows += _measured_rows(measured, note)
     return {
         "curves": curves,
         "corner": corner_pt,
@@ -479,7 +493,59 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None) -
         "ugf_hz": analysis.ugf_hz,
         "primary": analysis.primary,
         "balanced": analysis.stage.balanced,
+        "measured": measured,
+        "measured_note": note,
     }
+
+
+#: Which explorer plot a measured kind is drawn on: "gains" (magnitude) or "cmrr".
+MEASURED_PLOT = {"adm": "gains", "adm_se": "gains", "acm_se": "gains", "acm_dm": "gains",
+                 "cmrr": "cmrr", "cmrr_balanced": "cmrr"}
+
+
+def measured_view(analysis, measurement) -> dict:
+    """A measurement beside the model, as columns for the explorer's plots.
+
+    Parameters
+    ----------
+    analysis : Analysis
+    measurement : freqpair.measured.Measurement
+
+    Returns
+    -------
+    dict
+        ``columns``: ``f_hz`` [Hz], ``measured_db``, ``model_db``, ``residual_db``
+        (measured − model) [dB] at the measured frequencies (from
+        :func:`freqpair.measured.overlay`); ``kind``, ``label``, ``plot`` (see
+        :data:`MEASURED_PLOT`), ``origin`` (file name), ``rms_residual_db``,
+        ``max_abs_residual_db`` [dB] and ``rms_residual_deg`` [deg] (None
+        without a measured phase).
+
+    Raises
+    ------
+    MeasurementError
+        The measured kind is not defined for this stage, or the model is zero there.
+    """
+    ov = overlay(analysis, measurement)
+    cols = {"f_hz": np.asarray(ov.f_hz, float), "measured_db": np.asarray(ov.measured_db, float),
+            "model_db": np.asarray(ov.model_db, float),
+            "residual_db": np.asarray(ov.residual_db, float)}
+    return {"columns": cols, "kind": ov.kind, "label": ov.label, "plot": MEASURED_PLOT[ov.kind],
+            "origin": measurement.origin, "rms_residual_db": ov.rms_residual_db,
+            "max_abs_residual_db": ov.max_abs_residual_db,
+            "rms_residual_deg": ov.rms_residual_deg}
+
+
+def _measured_rows(measured, note) -> list[tuple[str, str]]:
+    if measured is None:
+        return [("measurement", f"not compared: {note}")]
+    rows = [("measurement", f"{measured['origin']} ({measured['kind']}, "
+                            f"{len(measured['columns']['f_hz'])} points)"),
+            ("measured − model, rms", f"{measured['rms_residual_db']:.2f} dB"),
+            ("measured − model, largest |·|", f"{measured['max_abs_residual_db']:.2f} dB")]
+    if measured["rms_residual_deg"] is not None:
+        rows.append(("measured − model, phase rms", f"{measured['rms_residual_deg']:.1f}°"))
+    return rows
 
 
 def curves_csv(curves: dict) -> str:

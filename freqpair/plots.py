@@ -9,13 +9,14 @@ colours of the renderers it finds by name).
 from __future__ import annotations
 
 __all__ = ["PALETTE", "GAIN_SERIES", "bode_figure", "cmrr_figure", "pole_zero_figure",
-           "eng_formatter", "style_figure"]
+           "residual_figure", "eng_formatter", "style_figure"]
 
-#: freqpair's own colours: deep teal, burnt orange, plum, olive, crimson, amber.
+#: freqpair's own colours: deep teal, burnt orange, plum, olive, crimson, amber; the
+#: measurement in slate blue.
 PALETTE = {
     "adm": "#0b6e69", "acm_se": "#c2571a", "acm_dm": "#6b4c9a", "cmrr_se": "#0b6e69",
     "cmrr": "#7d8431", "target": "#b23a48", "corner": "#d99a00", "pinned": "#8c8c8c",
-    "ink": "#1f2a36", "paper": "#fbf8f3", "grid": "#e6dfd3",
+    "measured": "#34508c", "ink": "#1f2a36", "paper": "#fbf8f3", "grid": "#e6dfd3",
 }
 
 #: (column prefix, legend label) of the gain curves.
@@ -217,5 +218,41 @@ def pole_zero_figure(source, title: str = "Poles (×) and zeros (○)", height: 
                                       ("real/2π", "@re_hz{eng}"), ("imag/2π", "@im_hz{eng}"),
                                       ("|s|/2π", "@mag_hz{eng}")]))
     fig.legend.location = "top_left"
+    style_figure(fig)
+    return fig
+
+
+def residual_figure(source, title: str = "Residual, measured − model", x_range=None,
+                    height: int = 170):
+    """Residual of a measurement against the model [dB] against frequency [Hz].
+
+    Parameters
+    ----------
+    source : ColumnDataSource
+        Columns ``f_hz`` [Hz], ``residual_db`` [dB] (and ``measured_db``,
+        ``model_db`` for the hover).
+    x_range : Range, optional
+        Share the frequency range with another figure.
+
+    Returns
+    -------
+    bokeh.plotting.figure
+        Renderers named ``"residual"`` (markers joined by a thin line) and
+        ``"residual_zero"`` (the 0 dB line).
+    """
+    from bokeh.models import HoverTool, Span
+    fig = _freq_figure(title, "residual [dB]", x_range, height=height)
+    fig.add_layout(Span(location=0.0, dimension="width", line_color=PALETTE["ink"],
+                        line_dash="dashed", line_width=1, name="residual_zero"))
+    fig.line("f_hz", "residual_db", source=source, color=PALETTE["measured"], line_width=1,
+             line_alpha=0.6)
+    r = fig.scatter("f_hz", "residual_db", source=source, marker="circle", size=6,
+                    fill_color="white", line_color=PALETTE["measured"], line_width=2,
+                    name="residual")
+    fig.add_tools(HoverTool(renderers=[r], formatters={"@f_hz": eng_formatter("Hz")},
+                            tooltips=[("frequency", "@f_hz{eng}"),
+                                      ("measured", "@measured_db{0.00} dB"),
+                                      ("model", "@model_db{0.00} dB"),
+                                      ("measured − model", "@residual_db{0.00} dB")]))
     style_figure(fig)
     return fig

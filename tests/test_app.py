@@ -312,3 +312,108 @@ def test_cli_app_with_a_bad_design_exits_with_one_line(tmp_path):
                           cwd=ROOT, env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
     assert proc.returncode == 2 and proc.stdout == ""
     assert proc.stderr.strip().count("\n") == 0 and "pair.beta = -5" in proc.stderr
+
+
+# ------------------------------------------------------------------ measurement overlay
+MEASURED = ROOT / "examples" / "measured" / "bench_front_end_cmrr_synthetic.csv"
+
+
+def _b64(path_or_bytes):
+    data = path_or_bytes if isinstance(path_or_bytes, bytes) else path_or_bytes.read_bytes()
+    return base64.b64encode(data).decode()
+
+
+@pytest.fixture
+def bench():
+    doc = Document()
+    return doc, make_doc(doc, str(ROOT / "examples" / "npn_resistor_rc_tail.toml"))
+
+
+def test_loaded_cmrr_measurement_is_drawn_over_the_cmrr_plot_with_its_residual(bench):
+    doc, ex = bench
+    w(doc, "measured_kind").value = "cmrr"
+    assert ex.measured.load(_b64(MEASURED), MEASURED.name), ex.message_text
+    src = w(doc, "measured_source")
+    meas = freqpair.measured.read_measurement(MEASURED, "cmrr")
+    # oracle: the CSV file read back by the csv module (common practice): first/last rows
+    import csv
+    rows = [r for r in csv.reader(l for l in MEASURED.read_text().splitlines()
+                                  if not l.startswith("#"))][1:]
+    assert len(src.data["f_hz"]) == len(rows) == len(meas)
+    assert src.data["f_hz"][0] == float(rows[0][0]) and src.data["f_hz"][-1] == float(rows[-1][0])
+    np.testing.assert_array_equal(src.data["measured_db"], [float(r[1]) for r in rows])
+    ov = freqpair.measured.overlay(freqpair.analyze(ex.design), meas)
+    np.testing.assert_allclose(src.data["residual_db"], ov.measured_db - ov.model_db,
+                               rtol=0, atol=1e-12)
+    # oracle: numpy.linalg.solve of G + j2πf·C: the model column is the single-ended CMRR
+    stage = freqpair.build_stage(ex.design)
+    G, C, B = stage.network.matrices()
+    o2 = stage.network.selector({"o2": 1.0})
+    for i in (0, len(rows) // 2, len(rows) - 1):
+        x = np.linalg.solve(G + 2j * np.pi * src.data["f_hz"][i] * C, B)
+        cmrr = abs(o2 @ x @ np.array([0.5, -0.5])) / abs(o2 @ x @ np.array([1.0, 1.0]))
+        assert src.data["model_db"][i] == pytest.approx(20 * np.log10(cmrr), abs=1e-9)
+    rms = math.sqrt(np.mean(np.square(ov.measured_db - ov.model_db)))
+    assert _row(ex, "measured − model, rms") == f"{rms:.2f} dB"   # numpy rms, 2 decimals
+    assert w(doc, "measured_cmrr").visible and not w(doc, "measured_gains").visible
+    assert w(doc, "residual").visible is True
+    residual_fig = next(m for m in doc.roots[0].references()
+                        if getattr(m, "title", None) is not None
+                        and str(getattr(m.title, "text", "")).startswith("Residual"))
+    assert residual_fig.visible
+
+
+def test_measurement_overlay_follows_a_design_edit(bench):
+    doc, ex = bench
+    ex.measured.load(_b64(MEASURED), MEASURED.name)
+    before = np.array(w(doc, "measured_source").data["model_db"])
+    w(doc, "text:tail.capacitance").value = "5.6 pF"
+    w(doc, "text:tail.resistance").value = "330 k"
+    src = w(doc, "measured_source")
+    assert not np.array_equal(before, src.data["model_db"])
+    # oracle: the CSV's own header says it was made from tail 330 kΩ ∥ 5.6 pF with 0.2 dB
+    # noise, so the residual rms at that design is about the noise level
+    rms = math.sqrt(np.mean(np.square(src.data["residual_db"])))
+    assert rms < 0.4
+
+
+def test_gain_kind_is_drawn_on_the_gain_plot_and_clear_removes_it(bench):
+    doc, ex = bench
+    w(doc, "measured_kind").value = "acm_se"
+    assert ex.measured.load(_b64(MEASURED), "cm.csv"), ex.message_text
+    assert w(doc, "measured_gains").visible and not w(doc, "measured_cmrr").visible
+    w(doc, "measured_kind").value = "cmrr"       # re-read the same file as another kind
+    assert w(doc, "measured_cmrr").visible
+    ex.measured.clear()
+    assert len(w(doc, "measured_source").data["f_hz"]) == 0
+    assert not w(doc, "measured_cmrr").visible
+    assert not any(q.startswith("measured") for q in ex.metrics.data["quantity"])
+
+
+@pytest.mark.parametrize("content, name, words", [
+    (b"frequency [Hz],CMRR [dB]\n1000,80\n500,79\n", "backwards.csv", "increasing"),
+    (b"frequency [Hz],CMRR [dB]\n1000,eighty\n", "words.csv", "'eighty'"),
+    (b"\xff\xfe\x00bad", "binary.csv", "UTF-8"),
+    (b"#" * (MAX_FILE_BYTES + 10), "huge.csv", "256 kB"),
+])
+def test_bad_measurement_file_gives_one_line_and_keeps_the_last_good_view(bench, content, name,
+                                                                          words):
+    doc, ex = bench
+    assert ex.measured.load(_b64(MEASURED), MEASURED.name)
+    before = list(w(doc, "measured_source").data["f_hz"])
+    assert not ex.measured.load(_b64(content), name)
+    # common practice: one line naming the file and what is wrong
+    assert name in ex.message_text and words in ex.message_text
+    assert "\n" not in ex.message_text and "kept the last good result" in ex.message_text
+    assert list(w(doc, "measured_source").data["f_hz"]) == before
+
+
+def test_kind_the_stage_does_not_have_is_refused_and_the_selector_goes_back():
+    doc = Document()
+    ex = make_doc(doc, str(ROOT / "examples" / "nmos_mirror_load_cascode_tail.toml"))
+    ex.measured.load(_b64(MEASURED), MEASURED.name)
+    w(doc, "measured_kind").value = "cmrr_balanced"
+    # oracle: DESIGN.md §3a — a mirror-loaded stage has no balanced output
+    assert "not defined for this stage" in ex.message_text
+    assert w(doc, "measured_kind").value == "cmrr"
+    assert w(doc, "measured_cmrr").visible
