@@ -284,8 +284,15 @@ def _measured_section(ov, origin: str):
     figs = [overlay_figure(ov)]
     if ov.measured_deg is not None:
         figs.append(overlay_figure(ov, "phase"))
-    for fig in figs:
+    from .plots import PALETTE, style_figure
+    for fig in figs:        # freqpair's one colour scheme (renderers found by name)
         fig.sizing_mode = "stretch_width"
+        fig.select(name="model")[0].glyph.line_color = PALETTE["adm"]
+        marks = fig.select(name="measured")[0].glyph
+        marks.line_color, marks.fill_color = PALETTE["measured"], "white"
+        marks.line_width = 2
+        fig.select(name="residual")[0].glyph.line_color = PALETTE["acm_dm"]
+        style_figure(fig)
     html = (table(rows, ["quantity", "value"], (1,))
             + '<p class="note">Markers: the measurement; line: the exact model at the measured '
               "frequencies; the residual (measured − model) is read on the right-hand axis.</p>"
