@@ -9,7 +9,7 @@ colours of the renderers it finds by name).
 from __future__ import annotations
 
 __all__ = ["PALETTE", "GAIN_SERIES", "bode_figure", "cmrr_figure", "pole_zero_figure",
-           "residual_figure", "eng_formatter", "style_figure", "freq_figure", "mark_frequency",
+           "add_residual_axis", "eng_formatter", "style_figure", "freq_figure", "mark_frequency",
            "CYCLE"]
 
 #: freqpair's own colours: deep teal, burnt orange, plum, olive, crimson, amber; the
@@ -254,37 +254,41 @@ def pole_zero_figure(source, title: str = "Poles (×) and zeros (○)", height: 
     return fig
 
 
-def residual_figure(source, title: str = "Residual, measured − model", x_range=None,
-                    height: int = 170):
-    """Residual of a measurement against the model [dB] against frequency [Hz].
+def add_residual_axis(fig, source, range_name: str = "residual"):
+    """Draw a measurement's residual [dB] on a secondary axis at the right of ``fig``.
 
     Parameters
     ----------
+    fig : bokeh.plotting.figure
+        A frequency figure (log axis, Hz).
     source : ColumnDataSource
-        Columns ``f_hz`` [Hz], ``residual_db`` [dB] (and ``measured_db``,
-        ``model_db`` for the hover).
-    x_range : Range, optional
-        Share the frequency range with another figure.
+        Columns ``f_hz`` [Hz] and ``residual_db`` (measured − model) [dB]; also
+        ``measured_db`` and ``model_db`` for the hover.
 
     Returns
     -------
-    bokeh.plotting.figure
-        Renderers named ``"residual"`` (markers joined by a thin line) and
-        ``"residual_zero"`` (the 0 dB line).
+    (Range1d, LinearAxis, list of renderers)
+        The residual's y range (the caller sets ``start``/``end``), its axis and
+        the renderers (the markers named ``range_name``, a thin line, the zero line),
+        so the caller can show or hide them.
     """
-    from bokeh.models import HoverTool, Span
-    fig = _freq_figure(title, "residual [dB]", x_range, height=height)
-    fig.add_layout(Span(location=0.0, dimension="width", line_color=PALETTE["ink"],
-                        line_dash="dashed", line_width=1, name="residual_zero"))
-    fig.line("f_hz", "residual_db", source=source, color=PALETTE["measured"], line_width=1,
-             line_alpha=0.6)
-    r = fig.scatter("f_hz", "residual_db", source=source, marker="circle", size=6,
-                    fill_color="white", line_color=PALETTE["measured"], line_width=2,
-                    name="residual")
-    fig.add_tools(HoverTool(renderers=[r], formatters={"@f_hz": eng_formatter("Hz")},
+    from bokeh.models import HoverTool, LinearAxis, Range1d
+    rng = Range1d(-1.0, 1.0)
+    fig.extra_y_ranges = dict(fig.extra_y_ranges, **{range_name: rng})
+    axis = LinearAxis(y_range_name=range_name, axis_label="measured − model [dB]",
+                      axis_label_text_color=PALETTE["acm_dm"],
+                      major_label_text_color=PALETTE["acm_dm"], axis_label_text_font_style="normal")
+    fig.add_layout(axis, "right")
+    zero = fig.line("f_hz", 0.0, source=source, y_range_name=range_name, color=PALETTE["acm_dm"],
+                    line_dash="dashed", line_width=1, line_alpha=0.6)
+    line = fig.line("f_hz", "residual_db", source=source, y_range_name=range_name,
+                    color=PALETTE["acm_dm"], line_width=1, line_alpha=0.7)
+    marks = fig.scatter("f_hz", "residual_db", source=source, y_range_name=range_name,
+                        marker="square", size=5, color=PALETTE["acm_dm"],
+                        legend_label="residual (right axis)", name=range_name)
+    fig.add_tools(HoverTool(renderers=[marks], formatters={"@f_hz": eng_formatter("Hz")},
                             tooltips=[("frequency", "@f_hz{eng}"),
                                       ("measured", "@measured_db{0.00} dB"),
                                       ("model", "@model_db{0.00} dB"),
                                       ("measured − model", "@residual_db{0.00} dB")]))
-    style_figure(fig)
-    return fig
+    return rng, axis, [zero, line, marks]

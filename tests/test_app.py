@@ -15,6 +15,7 @@ import scipy.linalg
 from bokeh.document import Document
 
 import freqpair
+import freqpair.measured
 from freqpair.app import app_dir
 from freqpair.app.view import MAX_FILE_BYTES, make_doc
 from freqpair.design import BUILTIN_EXAMPLE
@@ -356,11 +357,12 @@ def test_loaded_cmrr_measurement_is_drawn_over_the_cmrr_plot_with_its_residual(b
     rms = math.sqrt(np.mean(np.square(ov.measured_db - ov.model_db)))
     assert _row(ex, "measured − model, rms") == f"{rms:.2f} dB"   # numpy rms, 2 decimals
     assert w(doc, "measured_cmrr").visible and not w(doc, "measured_gains").visible
-    assert w(doc, "residual").visible is True
-    residual_fig = next(m for m in doc.roots[0].references()
-                        if getattr(m, "title", None) is not None
-                        and str(getattr(m.title, "text", "")).startswith("Residual"))
-    assert residual_fig.visible
+    assert w(doc, "residual_cmrr").visible and not w(doc, "residual_gains").visible
+    # the residual's secondary axis holds every residual point (common practice: no clipping)
+    fig = next(m for m in doc.roots[0].references()
+               if "residual_cmrr" in getattr(m, "extra_y_ranges", {}))
+    rng = fig.extra_y_ranges["residual_cmrr"]
+    assert rng.start <= min(src.data["residual_db"]) and rng.end >= max(src.data["residual_db"])
 
 
 def test_measurement_overlay_follows_a_design_edit(bench):
@@ -386,7 +388,7 @@ def test_gain_kind_is_drawn_on_the_gain_plot_and_clear_removes_it(bench):
     assert w(doc, "measured_cmrr").visible
     ex.measured.clear()
     assert len(w(doc, "measured_source").data["f_hz"]) == 0
-    assert not w(doc, "measured_cmrr").visible
+    assert not w(doc, "measured_cmrr").visible and not w(doc, "residual_cmrr").visible
     assert not any(q.startswith("measured") for q in ex.metrics.data["quantity"])
 
 

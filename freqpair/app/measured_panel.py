@@ -3,7 +3,7 @@
 :func:`measurement_from_upload` turns a browser upload (base64 text) into a
 :class:`freqpair.measured.Measurement` without Bokeh. :class:`MeasuredPanel`
 owns the widgets, the data source ``measured_source`` and the renderers it adds
-to the gain and CMRR figures and to its own small residual figure; the
+to the gain and CMRR figures (markers, and the residual on a secondary axis); the
 explorer hands it each new :func:`freqpair.explore.explore` result.
 """
 from __future__ import annotations
@@ -101,42 +101,43 @@ class MeasuredPanel:
                            options=[(k, k) for k in KINDS], width=125)
         self.kind.on_change("value", self._kind_changed)
         self.upload = FileInput(name="measured_file", accept=".csv,.txt,.tsv",
-                                width=width - 240)
+                                width=width - 20)
         self.upload.on_change("value", lambda a, o, n: self.load(n, self.upload.filename))
         self.clear_button = Button(label="Clear", name="clear_measured", width=80)
         self.clear_button.on_click(self.clear)
-        self._renderers = {"gains": [], "cmrr": []}
+        self._views = {}          # plot key -> (residual range, residual axis, renderers)
         self._legend_items = []
-        self.residual_figure = None
 
     # ------------------------------------------------------------- figures
-    def add_to(self, gains_fig, cmrr_fig, x_range=None):
-        """Draw the markers on the gain and CMRR figures; build the residual figure."""
-        from ..plots import PALETTE, residual_figure
+    def add_to(self, gains_fig, cmrr_fig):
+        """Draw the markers, the model at the measured points and the residual (on a
+        secondary axis) on the gain and CMRR figures, hidden until a measurement shows."""
+        from ..plots import PALETTE, add_residual_axis
         for key, fig in (("gains", gains_fig), ("cmrr", cmrr_fig)):
             model = fig.line("f_hz", "model_db", source=self.source, color=PALETTE["measured"],
-                             line_dash="dotted", line_width=1.5, visible=False,
+                             line_dash="dotted", line_width=1.5,
                              legend_label="model at measured points", name=f"measured_model_{key}")
             marks = fig.scatter("f_hz", "measured_db", source=self.source, marker="circle",
                                 size=7, fill_color="white", line_color=PALETTE["measured"],
-                                line_width=2, visible=False, legend_label="measured",
-                                name=f"measured_{key}")
-            self._renderers[key] = [model, marks]
+                                line_width=2, legend_label="measured", name=f"measured_{key}")
+            rng, axis, residual = add_residual_axis(fig, self.source, f"residual_{key}")
+            renderers = [model, marks, *residual]
+            self._views[key] = (rng, axis, renderers)
             for item in fig.legend[0].items:
-                if set(item.renderers) & {model, marks}:
-                    item.visible = False
+                if set(item.renderers) & set(renderers):
                     self._legend_items.append((key, item))
-        self.residual_figure = residual_figure(self.source, x_range=x_range)
-        self.residual_figure.visible = False
-        return self.residual_figure
+        self.show(None)
 
     def widgets(self):
         """The sidebar block: kind, file and clear button."""
         from bokeh.layouts import column, row
         from bokeh.models import Div
-        return column(Div(text="<small>Measurement to lay over the model (CSV, up to "
-                               f"{MAX_FILE_BYTES // 1024} kB):</small>"),
-                      row(self.kind, self.upload, self.clear_button))
+        return column(row(self.kind, column(Div(text="", height=14), self.clear_button)),
+                      Div(text="<small>Choose the kind, then a CSV file (up to "
+                               f"{MAX_FILE_BYTES // 1024} kB): markers on the gain or CMRR "
+                               "plot, the residual on its right-hand axis.</small>",
+                          width=380),
+                      self.upload)
 
     # ------------------------------------------------------------- state
     def show(self, data) -> None:
@@ -148,17 +149,16 @@ class MeasuredPanel:
         else:
             self.source.data = {c: np.asarray(v, float) for c, v in view["columns"].items()}
             plot = view["plot"]
-        for key, renderers in self._renderers.items():
+        for key, (rng, axis, renderers) in self._views.items():
+            on = key == plot
+            axis.visible = on
             for r in renderers:
-                r.visible = key == plot
+                r.visible = on
+            if on:
+                span = max(1.0, 1.2 * view["max_abs_residual_db"])
+                rng.update(start=-span, end=span)
         for key, item in self._legend_items:
             item.visible = key == plot
-        if self.residual_figure is not None:
-            self.residual_figure.visible = plot is not None
-            if view is not None:
-                self.residual_figure.title.text = (
-                    f"Residual, measured − model ({view['kind']}): rms "
-                    f"{view['rms_residual_db']:.2f} dB, largest {view['max_abs_residual_db']:.2f} dB")
 
     def load(self, b64: str, filename: str | None = None) -> bool:
         """Read a measurement upload (FileInput value) as the selected kind and show it."""

@@ -92,6 +92,7 @@ class Explorer:
         self.target_input.on_change("value", lambda a, o, n: self.apply(self.design))
         self.controls = Tabs(name="controls", tabs=[], width=SIDEBAR_PX)
         self.measured = MeasuredPanel(self._measurement_changed, self._say, SIDEBAR_PX)
+        self._files = None
         self.kind_selects = {}
         self.texts: dict = {}     # design key -> TextInput
         self.sliders: dict = {}   # design key -> Slider
@@ -121,7 +122,7 @@ class Explorer:
         cmrr = cmrr_figure(grid, self.corner, self.target, self.target_line, pinned=self.pinned,
                            balanced=balanced, height=480)
         pz = pole_zero_figure(self.pz, height=480)
-        residual = self.measured.add_to(mag, cmrr)
+        self.measured.add_to(mag, cmrr)
         self.measured.show(self.data)
         metrics = DataTable(source=self.metrics, name="metrics_table", index_position=None,
                             columns=[TableColumn(field="quantity", title="quantity", width=260),
@@ -142,32 +143,37 @@ class Explorer:
                 column(Div(text="<b>Exact results</b>"), metrics),
                 column(Div(text="<b>Hand estimate beside exact</b>"), hand))),
         ])
-        pin = Button(label="Pin curves", name="pin", width=95, button_type="primary")
-        pin.on_click(self.pin)
-        unpin = Button(label="Clear pins", name="clear_pins", width=95)
-        unpin.on_click(self.clear_pins)
-        save = Button(label="Save design", name="save_design", width=95)
-        save.on_click(self.save_design)
-        csv = Button(label="Curves CSV", name="save_csv", width=95)
-        csv.on_click(self.save_csv)
-        upload = FileInput(name="file", accept=".toml", width=SIDEBAR_PX - 20)
-        upload.on_change("value", lambda a, o, n: self.load_file(n, upload.filename))
         sidebar = column(
             row(*self.kind_selects.values()),
             row(self.target_input, Div(text="<small>Type values like <code>4.7 pF</code>, "
                                        "press Enter; sliders act on release.</small>",
                                        width=260)),
             self.controls,
-            Div(text="<b>Compare and files</b>"),
-            row(pin, unpin, save, csv),
-            Div(text="<small>Load a design file (TOML, up to 256 kB):</small>"),
-            upload,
-            self.measured.widgets(),
             width=SIDEBAR_PX)
-        views = column(main, residual, sizing_mode="stretch_width")
-        return column(self.header, self.message, row(sidebar, views, sizing_mode="stretch_width"),
+        return column(self.header, self.message, row(sidebar, main, sizing_mode="stretch_width"),
                       sizing_mode="stretch_width", styles={"background": "#f3efe7",
                                                            "padding": "6px"})
+
+    def _files_block(self):
+        """Pins, downloads, the design loader and the measurement overlay (the "Files" tab)."""
+        pin = Button(label="Pin curves", name="pin", width=92, button_type="primary")
+        pin.on_click(self.pin)
+        unpin = Button(label="Clear pins", name="clear_pins", width=92)
+        unpin.on_click(self.clear_pins)
+        save = Button(label="Save design", name="save_design", width=92)
+        save.on_click(self.save_design)
+        csv = Button(label="Curves CSV", name="save_csv", width=92)
+        csv.on_click(self.save_csv)
+        upload = FileInput(name="file", accept=".toml", width=SIDEBAR_PX - 20)
+        upload.on_change("value", lambda a, o, n: self.load_file(n, upload.filename))
+        return column(
+            Div(text="<b>Compare and files</b>"),
+            row(pin, unpin, save, csv),
+            Div(text=f"<small>Load a design file (TOML, up to {MAX_FILE_BYTES // 1024} kB):"
+                     "</small>"),
+            upload,
+            Div(text="<b>Measurement against the model</b>"),
+            self.measured.widgets())
 
     # ------------------------------------------------------------- controls
     def _build_controls(self):
@@ -185,6 +191,9 @@ class Explorer:
                 self.texts["feedback.factor"] = fb
                 rows.insert(0, fb)
             panels.append(TabPanel(title=title, child=column(*rows)))
+        if self._files is None:
+            self._files = self._files_block()
+        panels.append(TabPanel(title="Files", child=self._files))
         self.controls.tabs = panels
         self.controls.active = min(active, len(panels) - 1)
         self._syncing = True
