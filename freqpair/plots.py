@@ -18,7 +18,7 @@ __all__ = ["PALETTE", "GAIN_SERIES", "bode_figure", "cmrr_figure", "pole_zero_fi
 PALETTE = {
     "adm": "#0b6e69", "acm_se": "#c2571a", "acm_dm": "#6b4c9a", "cmrr_se": "#0b6e69",
     "cmrr": "#7d8431", "target": "#b23a48", "corner": "#d99a00", "pinned": "#8c8c8c",
-    "measured": "#34508c", "adm_se": "#3f8f5a", "a_total": "#0b6e69", "acm_cm": "#a0522d",
+    "measured": "#34508c", "adm_se": "#3f8f5a", "a_total": "#0b6e69", "acm_cm": "#5f7f8f",
     "acm_total": "#c2571a", "ink": "#1f2a36", "paper": "#fbf8f3", "grid": "#e6dfd3",
 }
 
