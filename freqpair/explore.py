@@ -19,14 +19,16 @@ import numpy as np
 
 from .design import Design, design_to_dict, parse_design
 from .errors import DesignError
+from .hand import hand_table
+from .loop import loop_analysis
+from .measured import MeasurementError, overlay
 from .metrics import db, lowest_crossing
+from .poles import response_zpk
 from .quantities import format_si
 from .responses import ZERO_GAIN_RATIO
 
 __all__ = ["explore", "explore_grid", "editable_values", "EditableValue", "switch_kind",
-           "KIND_CHOICES", "curves_csv", "CURVE_COLUMNS", "NOT_AVAILABLE"]
-
-NOT_AVAILABLE = "not available in this build"
+           "KIND_CHOICES", "curves_csv", "CURVE_COLUMNS", "measured_view", "MEASURED_PLOT"]
 
 #: Curve columns of ``explore(...)["curves"]`` in CSV order.
 CURVE_COLUMNS = ("f_hz", "adm_db", "adm_deg", "acm_se_db", "acm_se_deg", "acm_dm_db",
@@ -186,6 +188,14 @@ _DEVICES = {
 _COMPLEMENT = {"npn": "pnp", "pnp": "npn", "nmos": "pmos", "pmos": "nmos"}
 
 
+def _device_of(polarity: str, old: dict) -> dict:
+    """The section's own device when it already has ``polarity``, else freqpair's default."""
+    device = old.get("device")
+    if isinstance(device, dict) and device.get("type") == polarity:
+        return dict(device)
+    return dict(_DEVICES[polarity])
+
+
 def _section_template(section: str, kind: str, pair_type: str, old: dict) -> dict:
     if section == "pair":
         return dict(_DEVICES[kind])
@@ -194,13 +204,13 @@ def _section_template(section: str, kind: str, pair_type: str, old: dict) -> dic
             return {"type": "resistor", "resistance": old.get("resistance", 10e3),
                     "capacitance": old.get("capacitance", 1e-12)}
         return {"type": "mirror", "capacitance": old.get("capacitance", 1e-12),
-                "device": dict(_DEVICES[_COMPLEMENT[pair_type]])}
+                "device": _device_of(_COMPLEMENT[pair_type], old)}
     if kind == "ideal":
         return {"type": "ideal"}
     if kind == "norton":
         return {"type": "norton", "resistance": old.get("resistance", 1e6),
                 "capacitance": old.get("capacitance", old.get("extra_capacitance", 2e-12))}
-    out = {"type": kind, "device": dict(_DEVICES[pair_type]),
+    out = {"type": kind, "device": _device_of(pair_type, old),
            "extra_capacitance": old.get("extra_capacitance", old.get("capacitance", 0.5e-12))}
     if kind == "degenerated":
         out["degeneration"] = old.get("degeneration", 2e3)
@@ -211,8 +221,12 @@ def switch_kind(design: Design, section: str, kind: str) -> Design:
     """A copy of ``design`` with ``section`` ("pair", "load" or "tail") of a new kind.
 
     The new section starts from freqpair's defaults for that kind (resistances
-    and capacitances carried over where they mean the same thing); the load's
-    and tail's devices follow a changed pair polarity.
+    and capacitances carried over where they mean the same thing). A mirror
+    load gets devices of the pair's complementary polarity (pnp for npn, pmos
+    for nmos), a transistor tail ("mirror", "degenerated", "cascode") devices
+    of the pair's own polarity (DESIGN.md §3a): the section's existing device
+    when it already has that polarity, else freqpair's default device keys.
+    The load's and tail's devices follow a changed pair polarity.
 
     Raises
     ------
@@ -256,33 +270,28 @@ def _nan(n):
 
 
 def _pole_zero_points(analysis) -> dict:
-    """Poles (all natural frequencies) and zeros of the primary gain, in Hz."""
-    name = analysis.primary
-    try:
-        from .poles import response_zpk   # built by the poles module when present
-        zpk = response_zpk(analysis, name)
-        poles, zeros = np.asarray(zpk.poles_rad_s), np.asarray(zpk.zeros_rad_s)
-    except ImportError:
-        resp = analysis.responses
-        row, kind = resp.output_row(name)
-        zeros = resp.solver.zeros(resp.excitation(kind), row)
-        poles = analysis.natural_frequencies_rad_s
+    """Poles and zeros [Hz] of the primary gain (:func:`freqpair.poles.response_zpk`).
+
+    Coincident pole-zero pairs cancel out of the gain and are left out, as in the
+    pole-zero table of the reports.
+    """
+    zpk = response_zpk(analysis, analysis.primary)
+    poles, zeros = np.asarray(zpk.poles_rad_s, complex), np.asarray(zpk.zeros_rad_s, complex)
     kinds = ["pole"] * len(poles) + ["zero"] * len(zeros)
-    s = np.concatenate([np.asarray(poles, complex), np.asarray(zeros, complex)]) / (2 * np.pi)
+    s = np.concatenate([poles, zeros]) / (2 * np.pi)
     return {"kind": kinds, "re_hz": s.real, "im_hz": s.imag, "mag_hz": np.abs(s),
             "abs_re_hz": np.where(s.real != 0, np.abs(s.real), np.nan),
             "half_plane": ["right" if v > 0 else "left" for v in s.real]}
 
 
 def _rows_metrics(analysis, target_db, cross_hz, loop) -> list[tuple[str, str]]:
-    js = analysis.to_json()
     op_units = {"ic": ("I_C", "A"), "id": ("I_D", "A"), "gm": ("g_m", "S"),
                 "rpi": ("r_π", "Ω"), "ro": ("r_o", "Ω"), "cpi": ("C_π", "F"),
                 "cmu": ("C_μ", "F"), "cgs": ("C_gs", "F"), "cgd": ("C_gd", "F"),
                 "vce": ("V_CE", "V"), "vcb": ("V_CB", "V"), "vds": ("V_DS", "V"),
                 "vgs": ("V_GS", "V")}
     rows = []
-    for key, value in js["operating_point"].items():
+    for key, value in analysis.operating_point.to_json().items():
         label, unit = op_units.get(key, (key, ""))
         rows.append((f"operating point {label}", format_si(value, unit) if value is not None
                      else "∞"))
@@ -307,26 +316,46 @@ def _rows_metrics(analysis, target_db, cross_hz, loop) -> list[tuple[str, str]]:
     rows.append(("CMRR corner (−3 dB)", format_si(analysis.cmrr_corner_hz, "Hz")))
     rows.append((f"CMRR falls to target {target_db:g} dB at", _cross_text(analysis, target_db,
                                                                        cross_hz)))
-    tail = js["tail"]
-    rows.append(("tail resistance (Norton)", format_si(tail["resistance"], "Ω")
-                 if tail["resistance"] is not None else "∞ (ideal)"))
-    rows.append(("tail capacitance (Norton)", format_si(tail["capacitance"], "F")
-                 if tail["capacitance"] is not None else "— (ideal)"))
-    if analysis.design.feedback is None:
-        rows.append(("loop margins", "set a feedback factor to see them"))
-    elif isinstance(loop, str):
-        rows.append(("loop margins", loop))
-    elif loop is None:
-        rows.append(("loop margins", "no unity crossing of the loop gain"))
-    else:
-        pm = getattr(loop, "phase_margin_deg", None)
-        gm = getattr(loop, "gain_margin_db", None)
-        rows += [("phase margin", "no crossing" if pm is None or not math.isfinite(pm)
-                  else f"{pm:.1f}°"),
-                 ("gain margin", "no crossing" if gm is None or not math.isfinite(gm)
-                  else f"{gm:.1f} dB"),
-                 ("loop crossover", format_si(getattr(loop, "crossover_hz", None), "Hz"))]
+    rows += _tail_rows(analysis)
+    rows += _loop_rows(analysis, loop)
     return rows
+
+
+def _tail_rows(analysis) -> list[tuple[str, str]]:
+    """The tail's Norton view (DESIGN.md §3a) as rows; ideal tail → ∞."""
+    tail = analysis.tail
+    if tail is None:
+        return [("tail resistance (Norton)", "∞ (ideal)"),
+                ("tail capacitance (Norton)", "— (ideal)")]
+    fin = (lambda v, u: format_si(v, u) if math.isfinite(v) else "∞")
+    rows = [("tail resistance (Norton)", fin(tail.resistance, "Ω")),
+            ("tail capacitance (Norton)", fin(tail.capacitance, "F"))]
+    if tail.pair_capacitance:
+        rows.append(("pair's own capacitance at the tail", fin(tail.pair_capacitance, "F")))
+    return rows
+
+
+def _loop_rows(analysis, loop) -> list[tuple[str, str]]:
+    """Margins and closed-loop numbers of a design with ``[feedback]``."""
+    if analysis.design.feedback is None:
+        return [("loop margins", "set a feedback factor to see them")]
+    if loop is None:
+        return [("loop margins", "none (the differential gain is zero)")]
+
+    def opt(v, fmt, none="no crossing"):
+        return none if v is None or not math.isfinite(v) else fmt(v)
+
+    return [
+        ("loop gain at DC", f"{loop.dc_loop_gain_db:.2f} dB"),
+        ("phase margin", opt(loop.phase_margin_deg, lambda v: f"{v:.1f}°")),
+        ("gain margin", opt(loop.gain_margin_db, lambda v: f"{v:.1f} dB")),
+        ("loop crossover", opt(loop.crossover_hz, lambda v: format_si(v, "Hz"))),
+        ("closed-loop −3 dB frequency", opt(loop.closed_loop_f3db_hz,
+                                            lambda v: format_si(v, "Hz"), "none")),
+        ("closed-loop peaking", f"{loop.peaking_db:.2f} dB"),
+        ("closed loop stable", "yes" if loop.closed_loop_stable else "NO (right half-plane "
+                                                                     "poles)"),
+    ]
 
 
 def _cross_text(analysis, target_db, cross_hz) -> str:
@@ -354,14 +383,8 @@ def _target_crossing(analysis, target_db: float) -> float | None:
 
 
 def _hand_rows(analysis) -> dict:
-    try:
-        from .hand import hand_table
-    except ImportError:
-        return {"quantity": ["hand approximations"], "exact": [NOT_AVAILABLE],
-                "approx": [""], "error": [""], "method": [""]}
-    rows = hand_table(analysis)
     cols = {"quantity": [], "exact": [], "approx": [], "error": [], "method": []}
-    for r in rows:
+    for r in hand_table(analysis):
         unit = r.unit or ""
         fmt = ((lambda v: "—" if v is None else f"{v:.2f} dB") if unit == "dB"
                else (lambda v, u=unit: format_si(v, u)))
@@ -373,17 +396,8 @@ def _hand_rows(analysis) -> dict:
     return cols
 
 
-def _loop(analysis):
-    if analysis.design.feedback is None:
-        return None
-    try:
-        from .loop import loop_analysis
-    except ImportError:
-        return NOT_AVAILABLE
-    return loop_analysis(analysis)
-
-
-def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None) -> dict:
+def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None,
+            measurement=None) -> dict:
     """Every view of the explorer for one design, as plain arrays and rows.
 
     Parameters
@@ -396,6 +410,8 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None) -
         is found on the exact response.
     analysis : Analysis, optional
         A ready :func:`freqpair.analyze` result for ``design``.
+    measurement : freqpair.measured.Measurement, optional
+        A bench measurement to lay over the model (see :func:`measured_view`).
 
     Returns
     -------
@@ -409,7 +425,10 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None) -
         ``{"quantity", "value"}``; ``hand``: ``{"quantity", "exact",
         "approx", "error", "method"}``; scalars ``cmrr_corner_hz``,
         ``target_cross_hz``, ``f3db_hz``, ``ugf_hz``; ``primary`` (name of the
-        gain plotted as A_dm) and ``balanced``.
+        gain plotted as A_dm) and ``balanced``; ``measured``: the
+        :func:`measured_view` of ``measurement`` (None without one) and
+        ``measured_note``: why a given measurement cannot be compared with this
+        design ("" when it can).
 
     Raises
     ------
@@ -451,8 +470,15 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None) -
         "f_hz": [], "cmrr_db": []}
     target_pt = {"f_hz": [cross], "cmrr_db": [float(target_db)]} if cross is not None else {
         "f_hz": [], "cmrr_db": []}
-    loop = _loop(analysis)
+    loop = loop_analysis(analysis) if analysis.design.feedback is not None else None
     rows = _rows_metrics(analysis, float(target_db), cross, loop)
+    measured, note = None, ""
+    if measurement is not None:
+        try:
+            measured = measured_view(analysis, measurement)
+        except MeasurementError as exc:
+            note = str(exc)
+        rows += _measured_rows(measured, note)
     return {
         "curves": curves,
         "corner": corner_pt,
@@ -467,7 +493,59 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None) -
         "ugf_hz": analysis.ugf_hz,
         "primary": analysis.primary,
         "balanced": analysis.stage.balanced,
+        "measured": measured,
+        "measured_note": note,
     }
+
+
+#: Which explorer plot a measured kind is drawn on: "gains" (magnitude) or "cmrr".
+MEASURED_PLOT = {"adm": "gains", "adm_se": "gains", "acm_se": "gains", "acm_dm": "gains",
+                 "cmrr": "cmrr", "cmrr_balanced": "cmrr"}
+
+
+def measured_view(analysis, measurement) -> dict:
+    """A measurement beside the model, as columns for the explorer's plots.
+
+    Parameters
+    ----------
+    analysis : Analysis
+    measurement : freqpair.measured.Measurement
+
+    Returns
+    -------
+    dict
+        ``columns``: ``f_hz`` [Hz], ``measured_db``, ``model_db``, ``residual_db``
+        (measured − model) [dB] at the measured frequencies (from
+        :func:`freqpair.measured.overlay`); ``kind``, ``label``, ``plot`` (see
+        :data:`MEASURED_PLOT`), ``origin`` (file name), ``rms_residual_db``,
+        ``max_abs_residual_db`` [dB] and ``rms_residual_deg`` [deg] (None
+        without a measured phase).
+
+    Raises
+    ------
+    MeasurementError
+        The measured kind is not defined for this stage, or the model is zero there.
+    """
+    ov = overlay(analysis, measurement)
+    cols = {"f_hz": np.asarray(ov.f_hz, float), "measured_db": np.asarray(ov.measured_db, float),
+            "model_db": np.asarray(ov.model_db, float),
+            "residual_db": np.asarray(ov.residual_db, float)}
+    return {"columns": cols, "kind": ov.kind, "label": ov.label, "plot": MEASURED_PLOT[ov.kind],
+            "origin": measurement.origin, "rms_residual_db": ov.rms_residual_db,
+            "max_abs_residual_db": ov.max_abs_residual_db,
+            "rms_residual_deg": ov.rms_residual_deg}
+
+
+def _measured_rows(measured, note) -> list[tuple[str, str]]:
+    if measured is None:
+        return [("measurement", f"not compared: {note}")]
+    rows = [("measurement", f"{measured['origin']} ({measured['kind']}, "
+                            f"{len(measured['columns']['f_hz'])} points)"),
+            ("measured − model, rms", f"{measured['rms_residual_db']:.2f} dB"),
+            ("measured − model, largest |·|", f"{measured['max_abs_residual_db']:.2f} dB")]
+    if measured["rms_residual_deg"] is not None:
+        rows.append(("measured − model, phase rms", f"{measured['rms_residual_deg']:.1f}°"))
+    return rows
 
 
 def curves_csv(curves: dict) -> str:

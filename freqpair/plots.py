@@ -9,14 +9,21 @@ colours of the renderers it finds by name).
 from __future__ import annotations
 
 __all__ = ["PALETTE", "GAIN_SERIES", "bode_figure", "cmrr_figure", "pole_zero_figure",
-           "eng_formatter", "style_figure"]
+           "add_residual_axis", "eng_formatter", "style_figure", "freq_figure", "mark_frequency",
+           "CYCLE"]
 
-#: freqpair's own colours: deep teal, burnt orange, plum, olive, crimson, amber.
+#: freqpair's own colours: deep teal, burnt orange, plum, olive, crimson, amber; the
+#: measurement in slate blue. Keys are the gain names of ``responses.RESPONSE_NAMES``
+#: and the marks.
 PALETTE = {
     "adm": "#0b6e69", "acm_se": "#c2571a", "acm_dm": "#6b4c9a", "cmrr_se": "#0b6e69",
     "cmrr": "#7d8431", "target": "#b23a48", "corner": "#d99a00", "pinned": "#8c8c8c",
-    "ink": "#1f2a36", "paper": "#fbf8f3", "grid": "#e6dfd3",
+    "measured": "#34508c", "adm_se": "#3f8f5a", "a_total": "#0b6e69", "acm_cm": "#5f7f8f",
+    "acm_total": "#c2571a", "ink": "#1f2a36", "paper": "#fbf8f3", "grid": "#e6dfd3",
 }
+
+#: The same scheme as a cycle, for one curve per design (comparisons).
+CYCLE = ("#0b6e69", "#c2571a", "#6b4c9a", "#7d8431", "#b23a48", "#d99a00", "#34508c")
 
 #: (column prefix, legend label) of the gain curves.
 GAIN_SERIES = (("adm", "differential gain A_dm"),
@@ -63,6 +70,28 @@ def style_figure(fig) -> None:
         fig.legend.spacing = 0
         fig.legend.padding = 4
         fig.legend.click_policy = "hide"
+
+
+def freq_figure(title, y_label, x_range=None, **kw):
+    """An empty figure with a log frequency axis [Hz] in freqpair's look (no renderers yet).
+
+    ``height`` (pixels, default 260) and other ``figure`` keywords pass through.
+    """
+    fig = _freq_figure(title, y_label, x_range, **kw)
+    style_figure(fig)
+    return fig
+
+
+def mark_frequency(fig, f_hz, label: str, colour: str | None = None) -> None:
+    """A dashed vertical line at ``f_hz`` [Hz] with a small label (nothing when None)."""
+    from bokeh.models import Label, Span
+    if f_hz is None:
+        return
+    colour = colour or PALETTE["ink"]
+    fig.add_layout(Span(location=float(f_hz), dimension="height", line_color=colour,
+                        line_dash="dashed", line_width=1.2, line_alpha=0.7))
+    fig.add_layout(Label(x=float(f_hz), y=8, x_units="data", y_units="screen", text=label,
+                         text_font_size="11px", text_color=colour, x_offset=4))
 
 
 def _freq_figure(title, y_label, x_range=None, **kw):
@@ -126,7 +155,7 @@ def bode_figure(source, quantity: str = "magnitude", series=GAIN_SERIES, pinned=
     return fig
 
 
-def cmrr_figure(source, corner, target, target_line, pinned=None, balanced=True,
+def cmrr_figure(source, corner, target=None, target_line=None, pinned=None, balanced=True,
                 title: str = "CMRR against frequency", x_range=None, height: int = 320):
     """CMRR [dB] against frequency with the corner, the target and its crossing.
 
@@ -136,7 +165,8 @@ def cmrr_figure(source, corner, target, target_line, pinned=None, balanced=True,
         Columns ``f_hz``, ``cmrr_se_db`` and ``cmrr_db`` (balanced).
     corner, target : ColumnDataSource
         Points ``f_hz``, ``cmrr_db``: the CMRR corner; where CMRR falls to the target.
-    target_line : ColumnDataSource
+        ``target`` may be None (no target drawn).
+    target_line : ColumnDataSource, optional
         ``f_hz``, ``cmrr_db``: two points drawing the target level.
     pinned : ColumnDataSource, optional
         Snapshot drawn dashed.
@@ -160,20 +190,23 @@ def cmrr_figure(source, corner, target, target_line, pinned=None, balanced=True,
     if balanced:
         fig.line("f_hz", "cmrr_db", source=source, color=PALETTE["cmrr"], line_width=1.5,
                  line_alpha=0.8, legend_label="CMRR balanced", name="cmrr")
-    fig.line("f_hz", "cmrr_db", source=target_line, color=PALETTE["target"], line_dash="dotdash",
-             line_width=1.5, legend_label="CMRR target", name="target")
+    if target_line is not None:
+        fig.line("f_hz", "cmrr_db", source=target_line, color=PALETTE["target"],
+                 line_dash="dotdash", line_width=1.5, legend_label="CMRR target", name="target")
     c = fig.scatter("f_hz", "cmrr_db", source=corner, marker="diamond", size=13,
                     color=PALETTE["corner"], line_color=PALETTE["ink"],
                     legend_label="CMRR corner (−3 dB)", name="corner")
-    t = fig.scatter("f_hz", "cmrr_db", source=target, marker="triangle", size=12,
-                    color=PALETTE["target"], line_color=PALETTE["ink"],
-                    legend_label="falls to target", name="target_cross")
+    marks = [c]
+    if target is not None:
+        marks.append(fig.scatter("f_hz", "cmrr_db", source=target, marker="triangle", size=12,
+                                 color=PALETTE["target"], line_color=PALETTE["ink"],
+                                 legend_label="falls to target", name="target_cross"))
     fmt = {"@f_hz": eng_formatter("Hz")}
     fig.add_tools(HoverTool(renderers=[main], mode="vline", formatters=fmt,
                             tooltips=[("frequency", "@f_hz{eng}"),
                                       ("CMRR single-ended", "@cmrr_se_db{0.00} dB"),
                                       ("CMRR balanced", "@cmrr_db{0.00} dB")]))
-    fig.add_tools(HoverTool(renderers=[c, t], formatters=fmt,
+    fig.add_tools(HoverTool(renderers=marks, formatters=fmt,
                             tooltips=[("at", "@f_hz{eng}"), ("CMRR", "@cmrr_db{0.00} dB")]))
     fig.legend.location = "bottom_left"
     style_figure(fig)
@@ -219,3 +252,43 @@ def pole_zero_figure(source, title: str = "Poles (×) and zeros (○)", height: 
     fig.legend.location = "top_left"
     style_figure(fig)
     return fig
+
+
+def add_residual_axis(fig, source, range_name: str = "residual"):
+    """Draw a measurement's residual [dB] on a secondary axis at the right of ``fig``.
+
+    Parameters
+    ----------
+    fig : bokeh.plotting.figure
+        A frequency figure (log axis, Hz).
+    source : ColumnDataSource
+        Columns ``f_hz`` [Hz] and ``residual_db`` (measured − model) [dB]; also
+        ``measured_db`` and ``model_db`` for the hover.
+
+    Returns
+    -------
+    (Range1d, LinearAxis, list of renderers)
+        The residual's y range (the caller sets ``start``/``end``), its axis and
+        the renderers (the markers named ``range_name``, a thin line, the zero line),
+        so the caller can show or hide them.
+    """
+    from bokeh.models import HoverTool, LinearAxis, Range1d
+    rng = Range1d(-1.0, 1.0)
+    fig.extra_y_ranges = dict(fig.extra_y_ranges, **{range_name: rng})
+    axis = LinearAxis(y_range_name=range_name, axis_label="measured − model [dB]",
+                      axis_label_text_color=PALETTE["acm_dm"],
+                      major_label_text_color=PALETTE["acm_dm"], axis_label_text_font_style="normal")
+    fig.add_layout(axis, "right")
+    zero = fig.line("f_hz", 0.0, source=source, y_range_name=range_name, color=PALETTE["acm_dm"],
+                    line_dash="dashed", line_width=1, line_alpha=0.6)
+    line = fig.line("f_hz", "residual_db", source=source, y_range_name=range_name,
+                    color=PALETTE["acm_dm"], line_width=1, line_alpha=0.7)
+    marks = fig.scatter("f_hz", "residual_db", source=source, y_range_name=range_name,
+                        marker="square", size=5, color=PALETTE["acm_dm"],
+                        legend_label="residual (right axis)", name=range_name)
+    fig.add_tools(HoverTool(renderers=[marks], formatters={"@f_hz": eng_formatter("Hz")},
+                            tooltips=[("frequency", "@f_hz{eng}"),
+                                      ("measured", "@measured_db{0.00} dB"),
+                                      ("model", "@model_db{0.00} dB"),
+                                      ("measured − model", "@residual_db{0.00} dB")]))
+    return rng, axis, [zero, line, marks]

@@ -3,7 +3,8 @@
 :func:`report_html` builds the page: a drawn picture of the stage, the
 operating point, the gains, bandwidth, CMRR and its corner, poles and zeros,
 the hand-vs-exact table, loop margins (with ``[feedback]``), interactive
-Bode and CMRR plots and the cautions. :func:`write_report` writes it
+Bode and CMRR plots, a measurement against the model (when given) and the
+cautions. :func:`write_report` writes it
 atomically. Every number shown in the metric table is the one
 ``Analysis.to_json()`` gives, formatted by :func:`format_metric`.
 """
@@ -266,12 +267,51 @@ def _loop_html(analysis) -> str:
             + table(rows, ["quantity", "value"], (1,)))
 
 
-def report_html(analysis) -> str:
+def _measured_section(ov, origin: str):
+    """HTML and figure of the "Measurement against the model" section."""
+    from bokeh.layouts import column
+
+    from .measured_plots import overlay_figure
+    rows = [("measured kind", f"{ov.kind} — {ov.label}"),
+            ("file", origin),
+            ("points", str(len(ov.f_hz))),
+            ("frequency range", f"{format_si(float(ov.f_hz[0]), 'Hz')} … "
+                                f"{format_si(float(ov.f_hz[-1]), 'Hz')}"),
+            ("residual rms (measured − model)", f"{ov.rms_residual_db:.2f} dB"),
+            ("largest |residual|", f"{ov.max_abs_residual_db:.2f} dB")]
+    if ov.rms_residual_deg is not None:
+        rows.append(("phase residual rms", f"{ov.rms_residual_deg:.1f}°"))
+    figs = [overlay_figure(ov)]
+    if ov.measured_deg is not None:
+        figs.append(overlay_figure(ov, "phase"))
+    from .plots import PALETTE, style_figure
+    for fig in figs:        # freqpair's one colour scheme (renderers found by name)
+        fig.sizing_mode = "stretch_width"
+        fig.select(name="model")[0].glyph.line_color = PALETTE["adm"]
+        marks = fig.select(name="measured")[0].glyph
+        marks.line_color, marks.fill_color = PALETTE["measured"], "white"
+        marks.line_width = 2
+        fig.select(name="residual")[0].glyph.line_color = PALETTE["acm_dm"]
+        style_figure(fig)
+    html = (table(rows, ["quantity", "value"], (1,))
+            + '<p class="note">Markers: the measurement; line: the exact model at the measured '
+              "frequencies; the residual (measured − model) is read on the right-hand axis.</p>"
+            + "{{plot:measured}}")
+    return section("Measurement against the model", html, "measured"), column(
+        *figs, sizing_mode="stretch_width")
+
+
+def report_html(analysis, measurement=None) -> str:
     """The whole report of one analysis as a standalone HTML document.
 
     Parameters
     ----------
     analysis : freqpair.analysis.Analysis
+    measurement : freqpair.measured.Measurement, optional
+        A bench measurement: adds the section "Measurement against the model"
+        (:func:`freqpair.measured.overlay`: residual rms and largest residual
+        [dB], overlay plot) and ``measured`` (the overlay's JSON) in the
+        embedded data.
 
     Returns
     -------
@@ -307,6 +347,12 @@ def report_html(analysis) -> str:
     body.append(section("Poles and zeros", _pole_zero_html(analysis), "poles"))
     body.append(section("Hand estimates beside the exact numbers", _hand_html(analysis), "hand"))
     body.append(section("Loop margins", _loop_html(analysis), "loop"))
+    if measurement is not None:
+        from .measured import overlay
+        ov = overlay(analysis, measurement)
+        html, plots["measured"] = _measured_section(ov, measurement.origin)
+        body.append(html)
+        data = dict(data, measured=ov.to_json())
     body.append(section("Cautions", f'<p class="caution">{escape(CAUTION)}</p>', "cautions"))
     title = d.name or "freqpair report"
     from . import __version__
@@ -314,13 +360,13 @@ def report_html(analysis) -> str:
                        "differential stage", "".join(body), plots, data)
 
 
-def write_report(analysis, path) -> None:
+def write_report(analysis, path, measurement=None) -> None:
     """Write :func:`report_html` to ``path`` atomically (temporary file, then rename).
 
     An interrupted run leaves the old file or none, never half a report.
     """
     from .design import atomic_write_text
-    atomic_write_text(path, report_html(analysis))
+    atomic_write_text(path, report_html(analysis, measurement))
 
 
 def compact_html(analysis) -> str:

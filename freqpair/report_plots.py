@@ -1,5 +1,7 @@
 """Bokeh figures for reports: Bode magnitude/phase, CMRR, and overlays of several designs.
 
+The Bode and CMRR figures are the explorer's own (:mod:`freqpair.plots`), fed
+from an analysis instead of the app's data sources, in the same colours.
 Every builder returns plain Bokeh objects (``figure``) that the caller may
 restyle (titles, sizes, colours, ranges) before showing or embedding them.
 Bokeh is imported inside the functions, so importing this module costs
@@ -10,13 +12,14 @@ from __future__ import annotations
 import numpy as np
 
 from .metrics import db
+from .plots import CYCLE
 from .responses import RESPONSE_NAMES
 
 __all__ = ["PALETTE", "bode_figures", "cmrr_figure", "overlay_figure", "response_label",
            "curve_columns"]
 
-#: freqpair's plot colours (cycled).
-PALETTE = ["#1b5e9e", "#c2410c", "#2f7d32", "#7b2d8e", "#b8860b", "#0e7c86", "#a61e4d"]
+#: freqpair's plot colours, cycled one per design (the scheme of :mod:`freqpair.plots`).
+PALETTE = list(CYCLE)
 
 _SHORT = {"adm": "A_dm (balanced)", "adm_se": "A_dm,se (o2)", "acm_se": "A_cm,se (o2)",
           "acm_dm": "A_cm-dm (balanced)", "acm_cm": "A_cm-cm", "a_total": "A_total",
@@ -65,48 +68,32 @@ def curve_columns(analysis, names=None, f_hz=None) -> dict[str, np.ndarray]:
     return cols
 
 
-def _new_figure(title, y_label, x_range=None, height=300, width=760):
-    from bokeh.models import HoverTool
-    from bokeh.plotting import figure
-    kw = {"x_range": x_range} if x_range is not None else {}
-    fig = figure(title=title, x_axis_type="log", height=height, width=width,
-                 x_axis_label="frequency [Hz]", y_axis_label=y_label,
-                 tools="pan,wheel_zoom,box_zoom,reset,save", sizing_mode="stretch_width", **kw)
-    fig.add_tools(HoverTool(tooltips=[("f", "@x{0.000a}Hz"), ("value", "@y{0.00}")],
-                            mode="vline"))
-    fig.title.text_font_size = "13px"
-    fig.background_fill_color = "#fcfcfa"
-    fig.grid.grid_line_color = "#e3e1d8"
-    return fig
-
-
-def _marker(fig, f_hz, label, colour):
-    from bokeh.models import Label, Span
-    if f_hz is None:
-        return
-    fig.add_layout(Span(location=float(f_hz), dimension="height", line_color=colour,
-                        line_dash="dashed", line_width=1.2))
-    fig.add_layout(Label(x=float(f_hz), y=8, x_units="data", y_units="screen", text=label,
-                         text_font_size="11px", text_color=colour, x_offset=4))
+def _source(cols: dict):
+    """A ColumnDataSource with the column names of :mod:`freqpair.plots` (``f_hz``, ...)."""
+    from bokeh.models import ColumnDataSource
+    data = {("f_hz" if k == "frequency_hz" else k): np.asarray(v, dtype=float)
+            for k, v in cols.items()}
+    return ColumnDataSource(data)
 
 
 def _line(fig, x, y, colour, label, dash="solid"):
     from bokeh.models import ColumnDataSource
-    src = ColumnDataSource({"x": np.asarray(x, dtype=float), "y": np.asarray(y, dtype=float)})
-    return fig.line("x", "y", source=src, line_color=colour, line_width=2, line_dash=dash,
-                    legend_label=label)
+    src = ColumnDataSource({"f_hz": np.asarray(x, dtype=float), "y": np.asarray(y, dtype=float)})
+    return fig.line("f_hz", "y", source=src, line_color=colour, line_width=2, line_dash=dash,
+                    legend_label=label, name=label)
 
 
 def _legend(fig):
+    from .plots import style_figure
+    style_figure(fig)      # legend look (the figure had no legend when first styled)
     if fig.legend:
         fig.legend.location = "bottom_left"
-        fig.legend.click_policy = "hide"
-        fig.legend.label_text_font_size = "11px"
-        fig.legend.background_fill_alpha = 0.8
 
 
 def bode_figures(analysis, names=None, f_hz=None):
     """Magnitude and phase of the stage's gains (shared frequency axis).
+
+    Built with :func:`freqpair.plots.bode_figure`, the explorer's own figure.
 
     Parameters
     ----------
@@ -120,50 +107,53 @@ def bode_figures(analysis, names=None, f_hz=None):
     -------
     (bokeh.plotting.figure, bokeh.plotting.figure)
         Magnitude [dB] and phase [deg] figures; f_3dB and the unity-gain
-        frequency are marked on the magnitude figure.
+        frequency are marked on the magnitude figure. Line renderers are named
+        after the gains (``"adm"``, ``"acm_se"``, ...).
     """
+    from .plots import PALETTE, bode_figure, mark_frequency
     cols = curve_columns(analysis, names, f_hz)
-    f = cols["frequency_hz"]
-    mag = _new_figure("Gain magnitude", "magnitude [dB]")
-    ph = _new_figure("Gain phase (unwrapped)", "phase [deg]", x_range=mag.x_range, height=240)
-    i = 0
-    for key in cols:
-        if not key.endswith("_db"):
-            continue
-        name = key[:-3]
-        colour = PALETTE[i % len(PALETTE)]
-        i += 1
-        _line(mag, f, cols[key], colour, response_label(name))
-        _line(ph, f, cols[f"{name}_deg"], colour, response_label(name))
-    _marker(mag, analysis.f3db_hz, "f_3dB", "#555555")
-    _marker(mag, analysis.ugf_hz, "unity gain", "#888888")
-    _legend(mag)
-    _legend(ph)
+    series = [(k[:-3], response_label(k[:-3])) for k in cols if k.endswith("_db")]
+    source = _source(cols)
+    mag = bode_figure(source, "magnitude", series=series, title="Gain magnitude", height=300)
+    ph = bode_figure(source, "phase", series=series, title="Gain phase (unwrapped)",
+                     x_range=mag.x_range, height=240)
+    mark_frequency(mag, analysis.f3db_hz, "f_3dB", PALETTE["ink"])
+    mark_frequency(mag, analysis.ugf_hz, "unity gain", PALETTE["pinned"])
     return mag, ph
 
 
 def cmrr_figure(analysis, f_hz=None):
     """CMRR versus frequency [dB], single-ended and (when defined) balanced.
 
+    Built with :func:`freqpair.plots.cmrr_figure`; the CMRR corner is marked.
+
     Returns
     -------
     bokeh.plotting.figure or None
         None when the common-mode gain is zero everywhere (CMRR infinite).
     """
+    from bokeh.models import ColumnDataSource
+
+    from .plots import cmrr_figure as plot_cmrr
     cols = curve_columns(analysis, ["adm", "adm_se", "acm_se", "acm_dm"], f_hz)
     f = cols["frequency_hz"]
-    fig = _new_figure("Common-mode rejection", "CMRR [dB]")
-    drawn = False
-    if "adm_se_db" in cols and "acm_se_db" in cols:
-        _line(fig, f, cols["adm_se_db"] - cols["acm_se_db"], PALETTE[0], "CMRR single-ended (o2)")
-        drawn = True
-    if "adm_db" in cols and "acm_dm_db" in cols:
-        _line(fig, f, cols["adm_db"] - cols["acm_dm_db"], PALETTE[1], "CMRR balanced", "dashed")
-        drawn = True
-    if not drawn:
+    nan = np.full(f.shape, np.nan)
+    se = "adm_se_db" in cols and "acm_se_db" in cols
+    bal = "adm_db" in cols and "acm_dm_db" in cols
+    if not (se or bal):
         return None
-    _marker(fig, analysis.cmrr_corner_hz, "CMRR corner", "#555555")
-    _legend(fig)
+    data = {"f_hz": f,
+            "cmrr_se_db": cols["adm_se_db"] - cols["acm_se_db"] if se else nan,
+            "cmrr_db": cols["adm_db"] - cols["acm_dm_db"] if bal else nan}
+    corner = {"f_hz": [], "cmrr_db": []}
+    fc = analysis.cmrr_corner_hz
+    if fc is not None:
+        r = analysis.responses.at([fc])
+        corner = {"f_hz": [fc], "cmrr_db": [float(db(r.adm_se[0]) - db(r.acm_se[0]))]}
+    fig = plot_cmrr(ColumnDataSource(data), ColumnDataSource(corner), balanced=bal,
+                    title="Common-mode rejection", height=300)
+    if not se:
+        fig.select(name="cmrr_se")[0].visible = False
     return fig
 
 
@@ -185,6 +175,9 @@ def overlay_figure(analyses, quantity: str = "primary", labels=None, f_hz=None):
     -------
     bokeh.plotting.figure
     """
+    from bokeh.models import HoverTool
+
+    from .plots import eng_formatter, freq_figure
     titles = {"primary": ("Differential gain", "magnitude [dB]"),
               "phase": ("Differential gain phase", "phase [deg]"),
               "cmrr_se": ("CMRR single-ended", "CMRR [dB]")}
@@ -195,7 +188,7 @@ def overlay_figure(analyses, quantity: str = "primary", labels=None, f_hz=None):
         hi = max(a.design.sweep.stop for a in analyses)
         f_hz = np.logspace(np.log10(lo), np.log10(hi), int(np.log10(hi / lo) * 50) + 1)
     labels = labels or [a.design.name or f"design {i + 1}" for i, a in enumerate(analyses)]
-    fig = _new_figure(*titles[quantity])
+    fig = freq_figure(*titles[quantity], height=300)
     for i, (a, label) in enumerate(zip(analyses, labels)):
         colour = PALETTE[i % len(PALETTE)]
         if quantity == "cmrr_se":
@@ -210,6 +203,10 @@ def overlay_figure(analyses, quantity: str = "primary", labels=None, f_hz=None):
                 continue
             y = cols[key]
         _line(fig, cols["frequency_hz"], y, colour, f"{i + 1}: {label}")
+    unit = " dB" if quantity != "phase" else "°"
+    fig.add_tools(HoverTool(tooltips=[("design", "$name"), ("frequency", "@f_hz{eng}"),
+                                      ("value", "@y{0.00}" + unit)],
+                            formatters={"@f_hz": eng_formatter("Hz")}))
     if not fig.renderers:
         from bokeh.models import Label
         fig.add_layout(Label(x=10, y=10, x_units="screen", y_units="screen",

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -11,6 +12,8 @@ from freqpair.design import BUILTIN_EXAMPLE
 from freqpair.errors import DesignError
 from freqpair.explore import (CURVE_COLUMNS, curves_csv, editable_values, explore,
                               explore_grid, switch_kind)
+
+EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 
 
 @pytest.fixture(scope="module")
@@ -149,3 +152,25 @@ def test_zero_common_mode_gain_shows_no_curve_instead_of_minus_300_db():
     # oracle: DESIGN.md §2 — a matched MOS pair with an ideal tail has zero CM gain
     assert np.all(np.isnan(data["curves"]["acm_dm_db"]))
     assert "nan" not in " ".join(data["metrics"]["value"]).lower()
+
+
+def test_switching_tail_kind_keeps_the_tail_device_of_the_right_polarity():
+    d = freqpair.load_design(EXAMPLES / "nmos_mirror_load_cascode_tail.toml")
+    m = switch_kind(d, "tail", "mirror")
+    # oracle: DESIGN.md §3a — a transistor tail's devices have the pair's polarity; the
+    # designer's own device (here W = 80 µm) is kept, not replaced by a default
+    assert m.tail.type == "mirror" and m.tail.device == d.tail.device
+    assert m.tail.extra_capacitance == d.tail.extra_capacitance
+    back = switch_kind(switch_kind(m, "pair", "pmos"), "pair", "nmos")
+    assert back.tail.device.type == "nmos" and back.load.device.type == "pmos"
+
+
+def test_pole_zero_points_are_the_primary_gain_with_cancelled_pairs_left_out(design):
+    matched = freqpair.replace_value(design, "mismatch.load", 0)
+    an = freqpair.analyze(matched)
+    pz = explore(matched, analysis=an)["poles_zeros"]
+    n_nat = len(an.natural_frequencies_rad_s)
+    # oracle: DESIGN.md §2 symmetry — a perfectly matched pair's balanced gain sees only the
+    # differential half circuit (2 poles: input and output node); the 3 tail/common-mode
+    # natural frequencies cancel against zeros and are not drawn
+    assert pz["kind"].count("pole") == 2 and n_nat == 5

@@ -265,3 +265,24 @@ def test_plot_helpers_return_restylable_bokeh_figures(builtin_design):
     mag.title.text = "mine"
     mag.line([1, 10], [0, 1], line_color="black")
     assert mag.title.text == "mine" and phase.x_range is mag.x_range
+
+
+def test_report_and_explorer_draw_a_gain_with_the_same_builder_and_colour(builtin_design):
+    # oracle: common practice — one figure builder, one colour per gain across faces;
+    # the curve drawn is the analysis' own A_dm in dB (20·log10|A_dm|)
+    import numpy as np
+    from bokeh.document import Document
+    from freqpair.app.view import make_doc
+    from freqpair.report_plots import bode_figures, cmrr_figure
+    a = freqpair.analyze(builtin_design)
+    mag, _ = bode_figures(a)
+    ex = make_doc(Document(), design=builtin_design)
+    report_line = mag.select(name="adm")[0]
+    app_lines = [r for r in ex.doc.roots[0].references()
+                 if getattr(r, "name", None) == "adm" and hasattr(r, "glyph")]
+    assert app_lines and report_line.glyph.line_color == app_lines[0].glyph.line_color
+    f = np.asarray(report_line.data_source.data["f_hz"])
+    y = np.asarray(report_line.data_source.data["adm_db"])
+    np.testing.assert_allclose(y, 20 * np.log10(np.abs(a.responses.at(f).adm)), atol=1e-9)
+    cm = cmrr_figure(a)
+    assert cm.select(name="corner")[0].data_source.data["f_hz"] == [a.cmrr_corner_hz]

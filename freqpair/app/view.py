@@ -6,9 +6,6 @@ directory app's ``main.py`` calls it; tests call it on a fresh Document).
 """
 from __future__ import annotations
 
-import base64
-import binascii
-
 import tomli_w
 from bokeh.layouts import column, row
 from bokeh.models import (Button, ColumnDataSource, CustomJS, DataTable, Div, FileInput,
@@ -20,11 +17,10 @@ from ..errors import DesignError, FreqpairError
 from ..explore import (KIND_CHOICES, curves_csv, editable_values, explore, explore_grid,
                        switch_kind)
 from ..plots import PALETTE, bode_figure, cmrr_figure, pole_zero_figure
+from .measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
 
 __all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS"]
 
-#: Largest design file the app accepts [bytes].
-MAX_FILE_BYTES = 256 * 1024
 #: Frequency points per curve.
 N_POINTS = 500
 SIDEBAR_PX = 410
@@ -95,6 +91,8 @@ class Explorer:
                                       value="60", width=120)
         self.target_input.on_change("value", lambda a, o, n: self.apply(self.design))
         self.controls = Tabs(name="controls", tabs=[], width=SIDEBAR_PX)
+        self.measured = MeasuredPanel(self._measurement_changed, self._say, SIDEBAR_PX)
+        self._files = None
         self.kind_selects = {}
         self.texts: dict = {}     # design key -> TextInput
         self.sliders: dict = {}   # design key -> Slider
@@ -124,6 +122,8 @@ class Explorer:
         cmrr = cmrr_figure(grid, self.corner, self.target, self.target_line, pinned=self.pinned,
                            balanced=balanced, height=480)
         pz = pole_zero_figure(self.pz, height=480)
+        self.measured.add_to(mag, cmrr)
+        self.measured.show(self.data)
         metrics = DataTable(source=self.metrics, name="metrics_table", index_position=None,
                             columns=[TableColumn(field="quantity", title="quantity", width=260),
                                      TableColumn(field="value", title="value", width=160)],
@@ -143,30 +143,37 @@ class Explorer:
                 column(Div(text="<b>Exact results</b>"), metrics),
                 column(Div(text="<b>Hand estimate beside exact</b>"), hand))),
         ])
-        pin = Button(label="Pin curves", name="pin", width=95, button_type="primary")
-        pin.on_click(self.pin)
-        unpin = Button(label="Clear pins", name="clear_pins", width=95)
-        unpin.on_click(self.clear_pins)
-        save = Button(label="Save design", name="save_design", width=95)
-        save.on_click(self.save_design)
-        csv = Button(label="Curves CSV", name="save_csv", width=95)
-        csv.on_click(self.save_csv)
-        upload = FileInput(name="file", accept=".toml", width=SIDEBAR_PX - 20)
-        upload.on_change("value", lambda a, o, n: self.load_file(n, upload.filename))
         sidebar = column(
             row(*self.kind_selects.values()),
             row(self.target_input, Div(text="<small>Type values like <code>4.7 pF</code>, "
                                        "press Enter; sliders act on release.</small>",
                                        width=260)),
             self.controls,
-            Div(text="<b>Compare and files</b>"),
-            row(pin, unpin, save, csv),
-            Div(text="<small>Load a design file (TOML, up to 256 kB):</small>"),
-            upload,
             width=SIDEBAR_PX)
         return column(self.header, self.message, row(sidebar, main, sizing_mode="stretch_width"),
                       sizing_mode="stretch_width", styles={"background": "#f3efe7",
                                                            "padding": "6px"})
+
+    def _files_block(self):
+        """Pins, downloads, the design loader and the measurement overlay (the "Files" tab)."""
+        pin = Button(label="Pin curves", name="pin", width=92, button_type="primary")
+        pin.on_click(self.pin)
+        unpin = Button(label="Clear pins", name="clear_pins", width=92)
+        unpin.on_click(self.clear_pins)
+        save = Button(label="Save design", name="save_design", width=92)
+        save.on_click(self.save_design)
+        csv = Button(label="Curves CSV", name="save_csv", width=92)
+        csv.on_click(self.save_csv)
+        upload = FileInput(name="file", accept=".toml", width=SIDEBAR_PX - 20)
+        upload.on_change("value", lambda a, o, n: self.load_file(n, upload.filename))
+        return column(
+            Div(text="<b>Compare and files</b>"),
+            row(pin, unpin, save, csv),
+            Div(text=f"<small>Load a design file (TOML, up to {MAX_FILE_BYTES // 1024} kB):"
+                     "</small>"),
+            upload,
+            Div(text="<b>Measurement against the model</b>"),
+            self.measured.widgets())
 
     # ------------------------------------------------------------- controls
     def _build_controls(self):
@@ -184,6 +191,9 @@ class Explorer:
                 self.texts["feedback.factor"] = fb
                 rows.insert(0, fb)
             panels.append(TabPanel(title=title, child=column(*rows)))
+        if self._files is None:
+            self._files = self._files_block()
+        panels.append(TabPanel(title="Files", child=self._files))
         self.controls.tabs = panels
         self.controls.active = min(active, len(panels) - 1)
         self._syncing = True
@@ -282,11 +292,17 @@ class Explorer:
             raise DesignError(f"CMRR target = {value:g} dB: outside ±400 dB")
         return value
 
-    def apply(self, design) -> bool:
-        """Analyse ``design`` and show it; on any error keep the last good result."""
+    def apply(self, design, need_measured: bool = False) -> bool:
+        """Analyse ``design`` and show it; on any error keep the last good result.
+
+        With ``need_measured`` a measurement that cannot be compared with the
+        design is an error too (used when a measurement or its kind is chosen).
+        """
+        measurement = self.measured.measurement
         try:
             target = self._target_db()
-            data = explore(design, explore_grid(design, N_POINTS), target_db=target)
+            data = explore(design, explore_grid(design, N_POINTS), target_db=target,
+                           measurement=measurement)
         except FreqpairError as exc:
             self._say(f"{exc} — kept the last good result", bad=True)
             return False
@@ -295,10 +311,16 @@ class Explorer:
             self._say(f"could not analyse this design ({exc.__class__.__name__}: {msg}) — "
                       "kept the last good result", bad=True)
             return False
+        if need_measured and data["measured_note"]:
+            self._say(f"{data['measured_note']} — kept the last good result", bad=True)
+            return False
         self.design = design
         self.data = data
         self._show(data)
         return True
+
+    def _measurement_changed(self) -> bool:
+        return self.apply(self.design, need_measured=True)
 
     def _show(self, data):
         f = data["curves"]["f_hz"]
@@ -312,6 +334,7 @@ class Explorer:
             self.pz.data = dict(data["poles_zeros"])
             self.metrics.data = dict(data["metrics"])
             self.hand.data = dict(data["hand"])
+            self.measured.show(data)
             name = self.design.name or "(unnamed design)"
             self.header.text = (f"<div style='{_CSS_HEADER}'><b>freqpair explorer</b> — "
                                 f"{_html(name)}</div>")
@@ -353,16 +376,9 @@ class Explorer:
         name = filename or "uploaded file"
         if not b64:
             return False
-        if len(b64) * 3 // 4 > MAX_FILE_BYTES:
-            self._say(f"{name}: too large ({len(b64) * 3 // 4 // 1024} kB; the limit is "
-                      f"{MAX_FILE_BYTES // 1024} kB) — kept the last good result", bad=True)
-            return False
         try:
-            text = base64.b64decode(b64, validate=True).decode("utf-8")
+            text = upload_text(b64, name, "design file")
             design = design_from_text(text, origin=name)
-        except (binascii.Error, UnicodeDecodeError):
-            self._say(f"{name}: not a UTF-8 text file — kept the last good result", bad=True)
-            return False
         except FreqpairError as exc:
             self._say(f"{exc} — kept the last good result", bad=True)
             return False
@@ -380,9 +396,14 @@ def _status(data) -> str:
     from ..quantities import format_si
     corner = format_si(data["cmrr_corner_hz"], "Hz")
     cross = data["target_cross_hz"]
-    return (f"f_3dB {format_si(data['f3db_hz'], 'Hz')} · CMRR corner {corner} · "
+    text = (f"f_3dB {format_si(data['f3db_hz'], 'Hz')} · CMRR corner {corner} · "
             f"CMRR falls to {data['target_db']:g} dB at "
             f"{format_si(cross, 'Hz') if cross is not None else '— (not in range)'}")
+    if data.get("measured") is not None:
+        text += f" · measured − model rms {data['measured']['rms_residual_db']:.2f} dB"
+    elif data.get("measured_note"):
+        text += f" · measurement not compared: {data['measured_note']}"
+    return text
 
 
 def make_doc(doc, design_path: str | None = None, design=None) -> Explorer:
