@@ -37,7 +37,17 @@ METRIC_LABELS = {
     "phase_margin_deg": "phase margin",
     "gain_margin_db": "gain margin",
     "crossover_hz": "loop crossover frequency",
+    "phase_crossover_hz": "phase crossover (−180°) frequency",
+    "dc_loop_gain_db": "DC loop gain T(0)",
+    "closed_loop_f3db_hz": "closed-loop −3 dB frequency",
+    "peaking_db": "closed-loop peaking",
+    "closed_loop_stable": "closed loop stable",
+    "overshoot_pct": "step overshoot",
+    "settling_time_s": "1 % settling time",
 }
+
+#: keys that exist only for a stage with a balanced (two-output) load
+BALANCED_ONLY = ("cmrr_db", "cmrr_textbook_db")
 
 _NULL_TEXT = {
     "ugf_hz": "none (gain ≤ 1)",
@@ -52,6 +62,9 @@ _NULL_TEXT = {
     "phase_margin_deg": "no crossing",
     "gain_margin_db": "no crossing",
     "crossover_hz": "no crossing",
+    "phase_crossover_hz": "no crossing",
+    "overshoot_pct": "— (unstable)",
+    "settling_time_s": "— (unstable)",
 }
 
 _OP_UNITS = {"ic": ("I_C", "A"), "id": ("I_D", "A"), "gm": ("g_m", "S"), "rpi": ("r_pi", "Ω"),
@@ -60,15 +73,18 @@ _OP_UNITS = {"ic": ("I_C", "A"), "id": ("I_D", "A"), "gm": ("g_m", "S"), "rpi": 
              "vcb": ("V_CB", "V"), "vds": ("V_DS", "V"), "vgs": ("V_GS", "V")}
 
 
-def format_metric(key: str, value) -> str:
+def format_metric(key: str, value, balanced: bool = True) -> str:
     """Text of one JSON metric as the reports show it.
 
     Parameters
     ----------
     key : str
         JSON key (dotted for nested ones, e.g. ``"tail.resistance"``).
-    value : float or None
+    value : float, bool or None
         SI value; None means infinite or undefined (see DESIGN.md §4).
+    balanced : bool
+        False for a stage with a single output (mirror load): its balanced-only
+        keys are "not applicable" rather than infinite.
 
     Returns
     -------
@@ -76,6 +92,10 @@ def format_metric(key: str, value) -> str:
         dB to 0.01 dB, degrees to 0.1°, frequencies [Hz], resistances [Ω] and
         capacitances [F] in engineering notation (4 significant digits).
     """
+    if key in BALANCED_ONLY and not balanced:
+        return "— (single-ended output)"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return _NULL_TEXT.get(key, "—")
     if key.endswith("_db"):
@@ -128,7 +148,8 @@ def metric_rows(analysis, data: dict | None = None) -> list[MetricRow]:
     flat = _flat(data if data is not None else analysis.to_json())
     order = [k for k in METRIC_LABELS if k in flat] + sorted(k for k in flat
                                                             if k not in METRIC_LABELS)
-    return [MetricRow(k, METRIC_LABELS.get(k, k), flat[k], format_metric(k, flat[k]))
+    balanced = analysis.stage.balanced
+    return [MetricRow(k, METRIC_LABELS.get(k, k), flat[k], format_metric(k, flat[k], balanced))
             for k in order]
 
 

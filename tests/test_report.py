@@ -74,8 +74,9 @@ def test_report_shows_every_json_metric_as_formatted(path):
     flat = _flat_json(data)
     assert flat, "no metrics in the JSON"
     for key, value in flat.items():
-        cell = f'<td class="num">{format_metric(key, value)}</td>'
-        assert cell in html, f"{key}: {format_metric(key, value)!r} not in report"
+        text = format_metric(key, value, a.stage.balanced)
+        cell = f'<td class="num">{text}</td>'
+        assert cell in html, f"{key}: {text!r} not in report"
     embedded = html.split('id="freqpair-data">', 1)[1].split("</script>", 1)[0]
     assert json.loads(embedded.replace("<\\/", "</")) == data
 
@@ -86,6 +87,9 @@ def test_metric_format_is_two_decimal_db_and_engineering_hz():
     assert format_metric("f3db_hz", 2035105.7) == "2.035 MHz"
     assert format_metric("cmrr_db", None).startswith("∞")
     assert format_metric("tail.capacitance", 3.3e-12) == "3.3 pF"
+    # a mirror-loaded stage has no balanced output: not applicable, never "infinite"
+    assert format_metric("cmrr_db", None, balanced=False) == "— (single-ended output)"
+    assert format_metric("closed_loop_stable", True) == "yes"
 
 
 def test_metric_rows_cover_the_json_keys(builtin_design):
