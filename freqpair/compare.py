@@ -84,8 +84,9 @@ def compare_table(analyses, labels=None) -> CompareTable:
                 seen.append(k)
     keys = [k for k in METRIC_LABELS if k in seen] + [k for k in seen if k not in METRIC_LABELS]
     values = [[f.get(k) for f in flats] for k in keys]
-    texts = [[("not applicable" if k not in f else format_metric(k, f[k])) for f in flats]
-             for k in keys]
+    balanced = [a.stage.balanced for a in analyses]
+    texts = [[("not applicable" if k not in f else format_metric(k, f[k], bal))
+              for f, bal in zip(flats, balanced)] for k in keys]
     differs = [[(i > 0 and (not _same(row[i], row[0]) or (keys[j] in flats[i]) !=
                             (keys[j] in flats[0]))) for i in range(len(row))]
                for j, row in enumerate(values)]
