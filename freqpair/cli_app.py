@@ -15,6 +15,12 @@ __all__ = ["register", "cmd_app", "make_server", "limit_blas_threads"]
 HOST = "127.0.0.1"
 
 
+
+#: Largest websocket message the server accepts [bytes]: room for a 256 kB file
+#: upload (base64 grows it by 4/3) and the document messages, refusing anything
+#: much larger before it is read (the default is 20 MB).
+WEBSOCKET_MAX_BYTES = 2 * 1024 * 1024
+
 def limit_blas_threads() -> bool:
     """Run BLAS single-threaded in this process (the app's matrices are small:
     worker threads only add wake-up latency). Returns False if unavailable."""
@@ -48,7 +54,8 @@ def make_server(design_path: str | None = None, port: int = 5006):
     argv = [design_path] if design_path else []
     app = Application(DirectoryHandler(filename=str(app_dir()), argv=argv))
     return Server({"/": app}, address=HOST, port=port, num_procs=1,
-                  allow_websocket_origin=[f"{HOST}:{port}", f"localhost:{port}"])
+                  allow_websocket_origin=[f"{HOST}:{port}", f"localhost:{port}"],
+                  websocket_max_message_size=WEBSOCKET_MAX_BYTES)
 
 
 def cmd_app(args) -> int:
