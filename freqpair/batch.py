@@ -71,9 +71,10 @@ class BatchGains:
     acm_dm: np.ndarray | None
 
 
-#: Sample × frequency elements per matrix-product block (bounds memory: ~1.6 MB
-#: of products per 10 polynomial parts); the block's row count depends on n_f only.
-GEMM_ELEMENTS = 40_000
+#: Sample × frequency elements per matrix-product block: the block holds
+#: ``rows = GEMM_ELEMENTS // n_f`` samples (8 … 256; a function of n_f only, so
+#: every chunk uses the same shapes) and its product 10 reals per element (~1.6 MB).
+GEMM_ELEMENTS = 20_000
 #: Polynomials of the grid expansion: det(I + D·K), then the numerators of
 #: (balanced, DM), (balanced, CM), (o2, DM), (o2, CM).
 _POLYS = ("det", "adm", "acm_dm", "adm_se", "acm_se")
@@ -237,12 +238,12 @@ class BatchEvaluator:
         return H[..., :2, :2], H[..., :2, 2:], H[..., 2:, :2], H[..., 2:, 2:]
 
     def _combine(self, H0, P, Q, K, D):
-        """H = H0 − P (I + D K)⁻¹ D Q for every sample.
+        """H = H0 − P (I + D K)⁻¹ D Q for every sample (used at DC).
 
         ``H0, P, Q, K`` carry a frequency axis (or none) in front of their
         matrix axes; ``D`` is ``(n_samples, [n_f,] r)``. The r × r systems are
-        solved by Gaussian elimination vectorised over samples and frequencies
-        (r Python steps; much faster than one LAPACK call per tiny matrix). The
+        solved by Gaussian elimination vectorised over samples (r Python steps;
+        much faster than one LAPACK call per tiny matrix). The
         matrix is the identity plus the relative size of each element change,
         so elimination without pivoting is safe for any non-singular sample;
         a singular one shows as a non-finite value and is reported by the caller.
@@ -324,7 +325,8 @@ class BatchEvaluator:
         """Yield ``(lo, hi, re, im)``: the determinant and numerator polynomials of
         samples ``lo … hi−1`` as real and imaginary parts, each ``(hi−lo, n_poly, n_f)``.
 
-        One real matrix product per block of :data:`GEMM_ROWS` samples (padded),
+        One real matrix product per block of samples (padded to the fixed height
+        set by :data:`GEMM_ELEMENTS`),
         BLAS single-threaded: every call has the same shapes, so a sample's values
         do not depend on which other samples share its block (chunking-independent).
         """
