@@ -75,6 +75,8 @@ class BatchGains:
 #: ``rows = GEMM_ELEMENTS // n_f`` samples (8 … 256; a function of n_f only, so
 #: every chunk uses the same shapes) and its product 10 reals per element (~1.6 MB).
 GEMM_ELEMENTS = 20_000
+#: Samples per batched direct solve (one n × n complex matrix each, ~2.4 MB for 12 nodes).
+SOLVE_BLOCK = 1024
 #: Polynomials of the grid expansion: det(I + D·K), then the numerators of
 #: (balanced, DM), (balanced, CM), (o2, DM), (o2, CM).
 _POLYS = ("det", "adm", "acm_dm", "adm_se", "acm_se")
@@ -398,20 +400,24 @@ class BatchEvaluator:
         a time in a batch, so results never depend on how many points a chunk holds.
         """
         s = np.atleast_1d(np.asarray(s, dtype=complex))
-        D = dG + s[:, None] * dC
-        A = self._G[None] + s[:, None, None] * self._C[None]
-        for j, entries in enumerate(self._stamp_entries):
-            for p, q, w in entries:
-                A[:, p, q] += w * D[:, j]
-        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            try:
-                x = np.linalg.solve(A, np.broadcast_to(self._rhs, (s.size,) + self._rhs.shape))
-            except np.linalg.LinAlgError:       # a singular sample: reported by the caller
-                x = np.full((s.size,) + self._rhs.shape, np.nan, dtype=complex)
         H = np.zeros((s.size, 2, 2), dtype=complex)
-        for p, terms in enumerate(self._row_entries):
-            for k, w in terms:
-                H[:, p] += w * x[:, k]
+        for lo in range(0, s.size, SOLVE_BLOCK):          # bounds the n × n matrices held
+            sl = slice(lo, lo + SOLVE_BLOCK)
+            sb = s[sl]
+            D = dG[sl] + sb[:, None] * dC[sl]
+            A = np.multiply(sb[:, None, None], self._C[None])
+            A += self._G
+            for j, entries in enumerate(self._stamp_entries):
+                for p, q, w in entries:
+                    A[:, p, q] += w * D[:, j]
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+                try:
+                    x = np.linalg.solve(A, np.broadcast_to(self._rhs, (sb.size,) + self._rhs.shape))
+                except np.linalg.LinAlgError:     # a singular sample: reported by the caller
+                    x = np.full((sb.size,) + self._rhs.shape, np.nan, dtype=complex)
+            for p, terms in enumerate(self._row_entries):
+                for k, w in terms:
+                    H[sl, p] += w * x[:, k]
         return self._gains(H)
 
 

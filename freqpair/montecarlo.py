@@ -224,25 +224,34 @@ class _Engine:
         n = level.size
         out = np.full(n, np.inf)
         live = np.isfinite(level)
-        d = curve - level[:, None]
-        below = live & (d[:, 0] <= 0)
-        cross = (d[:, :-1] > 0) & (d[:, 1:] <= 0)
-        has = live & ~below & cross.any(axis=1)
         # per sample: log10 f and level difference at grid points j−1 … j+2 (bracket j, j+1)
         xs = np.full((n, 4), np.nan)
         ds = np.full((n, 4), np.nan)
 
-        def seed(sel, grid, dd, j):
-            cols = np.clip(j[:, None] + np.arange(-1, 3), 0, grid.size - 1)
-            xs[sel] = np.log10(grid)[cols]
-            ds[sel] = np.take_along_axis(dd, cols, axis=1)
-            edge = (j[:, None] + np.arange(-1, 3) < 0) | (j[:, None] + np.arange(-1, 3) >= grid.size)
-            xs[sel] = np.where(edge, np.nan, xs[sel])
-            ds[sel] = np.where(edge, np.nan, ds[sel])
+        def seed(rows, grid, values, vrows, j):
+            """Fill xs, ds of samples ``rows`` from rows ``vrows`` of ``values`` (× grid)
+            at grid points j−1 … j+2."""
+            k = j[:, None] + np.arange(-1, 3)
+            edge = (k < 0) | (k >= grid.size)
+            k = np.clip(k, 0, grid.size - 1)
+            xs[rows] = np.where(edge, np.nan, np.log10(grid)[k])
+            ds[rows] = np.where(edge, np.nan, values[vrows[:, None], k] - level[rows][:, None])
 
+        def first_fall(above):
+            """Index j of the first grid step from above the level to at/below it (−1: none)."""
+            if above.shape[1] < 2:
+                return np.full(above.shape[0], -1)
+            cross = above[:, :-1] & ~above[:, 1:]
+            j = np.argmax(cross, axis=1)
+            return np.where(cross[np.arange(len(j)), j], j, -1)
+
+        above = curve > level[:, None]             # booleans only: no n × n_f float copy
+        below = live & ~above[:, 0]
+        j = first_fall(above)
+        has = live & ~below & (j >= 0)
         sel = np.nonzero(has)[0]
         if sel.size:
-            seed(sel, self.f_hz, d[sel], np.argmax(cross[sel], axis=1))
+            seed(sel, self.f_hz, curve, sel, j[sel])
         for ext, mask in ((self.low_ext, below), (self.high_ext, live & ~below & ~has)):
             sel = np.nonzero(mask)[0]
             if sel.size == 0:
@@ -252,13 +261,13 @@ class _Engine:
             if grid.size < 2:
                 continue
             cse, _ = self.ev.cmrr_on_grid(s_of_hz(grid), dG[sel], dC[sel], ref[sel])
-            de = cse - level[sel][:, None]
+            above_e = cse > level[sel][:, None]
             if ext is self.low_ext:
-                de[:, 0] = np.maximum(de[:, 0], 1e-300)   # treat the lowest point as DC-like
-            cr = (de[:, :-1] > 0) & (de[:, 1:] <= 0)
-            ok = cr.any(axis=1)
+                above_e[:, 0] = True                  # treat the lowest point as DC-like
+            je = first_fall(above_e)
+            ok = je >= 0
             if ok.any():
-                seed(sel[ok], grid, de[ok], np.argmax(cr[ok], axis=1))
+                seed(sel[ok], grid, cse, np.nonzero(ok)[0], je[ok])
         todo = np.nonzero(np.isfinite(xs[:, 1]))[0]
         if todo.size:
             out[todo] = self._refine(xs[todo], ds[todo], level[todo], dG[todo], dC[todo],
@@ -540,7 +549,9 @@ def run_montecarlo(design, spec: MonteCarloSpec, n: int, seed: int, f_hz=None,
 
     def cat(name):
         arrs = [getattr(p, name) for p in parts]
-        return None if arrs[0] is None else np.concatenate(arrs)
+        if arrs[0] is None:
+            return None
+        return arrs[0] if len(arrs) == 1 else np.concatenate(arrs)   # one chunk: no copy
 
     values = {k: np.concatenate([p.values[k] for p in parts]) for k in spec.keys}
     cse, cbal = cat("cmrr_se_db_f"), cat("cmrr_db_f")
