@@ -379,17 +379,23 @@ class BatchEvaluator:
         cse = np.empty((n, s.size))
         cbal = np.empty((n, s.size)) if self.balanced else None
         tiny = (ZERO_GAIN_RATIO * np.asarray(ref, dtype=float)) ** 2
+        pairs = [(cse, 3, 4)] + ([(cbal, 1, 2)] if self.balanced else [])
         for lo, hi, re, im in self._expansions(s, dG, dC):
-            power = re * re + im * im             # |polynomial|², (rows, n_poly, n_f)
+            power = np.multiply(re, re)           # |polynomial|², (rows, n_poly, n_f)
+            power += im * im
             floor = tiny[lo:hi, None] * power[:, 0]
             bad = ~(np.isfinite(power[:, 0]) & (power[:, 0] > 0))
-            pairs = [(cse, 3, 4)] + ([(cbal, 1, 2)] if self.balanced else [])
             for out, num, den in pairs:
-                with np.errstate(divide="ignore", invalid="ignore"):
-                    val = 10.0 * np.log10(power[:, num] / power[:, den])
-                val[power[:, den] <= floor] = np.inf
-                val[bad] = np.nan
-                out[lo:hi] = val
+                val = out[lo:hi]
+                with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+                    np.divide(power[:, num], power[:, den], out=val)
+                    np.log10(val, out=val)
+                val *= 10.0
+                zero = power[:, den] <= floor
+                if zero.any():
+                    val[zero] = np.inf
+                if bad.any():
+                    val[bad] = np.nan
         return cse, cbal
 
     # ------------------------------------------------------------ one s per sample

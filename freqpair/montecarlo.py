@@ -280,8 +280,10 @@ class _Engine:
         ``xs, ds`` (n, 4): log10 f and CMRR − level at grid points j−1 … j+2 (NaN
         where absent); the root lies in [xs[:, 1], xs[:, 2]] (ds[:, 1] > 0 ≥ ds[:, 2]).
         The first trial point is the inverse cubic (or quadratic, or linear)
-        interpolant of the grid values at level 0; then secant steps through the
-        two latest points, replaced by the regula falsi point of the current
+        interpolant of the grid values at level 0; the second interpolates through
+        those grid points and the first point together (degree up to 4: the
+        first point's small error makes it ~1e-12 decades); then secant steps
+        through the two latest points, replaced by the regula falsi point of the current
         bracket when they leave it or fail to halve it (Illinois weights). Stops
         when a step is below :data:`XTOL_DECADES` (the returned point is that
         last step's end), the level is hit exactly or the bracket is that narrow.
@@ -290,7 +292,8 @@ class _Engine:
         a, b = xs[:, 1].copy(), xs[:, 2].copy()
         fa, fb = ds[:, 1].copy(), ds[:, 2].copy()
         n = a.size
-        x = _inverse_interpolation(xs, ds)
+        x = _inverse_interpolation(xs, ds, a, b, ((1, 2), (0, 1, 2), (1, 2, 3), (0, 1, 2, 3)))
+        x = np.where(np.isfinite(x), x, 0.5 * (a + b))
         # the grid end with the smaller |d| is the secant partner of the first point
         near = np.abs(fa) < np.abs(fb)
         xp, fp = np.where(near, a, b), np.where(near, fa, fb)
@@ -298,7 +301,7 @@ class _Engine:
         done = fb == 0
         result = np.where(done, b, x)
         width = b - a
-        for _ in range(100):
+        for it in range(100):
             act = np.nonzero(~done)[0]
             if act.size == 0:
                 break
@@ -313,6 +316,12 @@ class _Engine:
             with np.errstate(divide="ignore", invalid="ignore"):
                 sec = X - FX * (X - xp[act]) / (FX - fp[act])
                 rf = B2 - FB2 * (B2 - A2) / (FB2 - FA2)
+            if it == 0:     # first step: interpolate through the grid points and X together
+                x5 = np.column_stack([xs[act, :2], X, xs[act, 2:]])
+                d5 = np.column_stack([ds[act, :2], FX, ds[act, 2:]])
+                est = _inverse_interpolation(x5, d5, A2, B2,
+                                             ((0, 1, 2, 3), (1, 2, 3, 4), (0, 1, 2, 3, 4)))
+                sec = np.where(np.isfinite(est), est, sec)
             shrunk = (B2 - A2) <= 0.5 * width[act]
             use_sec = np.isfinite(sec) & (sec > A2) & (sec < B2) & \
                 ((np.abs(sec - X) <= 0.25 * (B2 - A2)) | shrunk)
@@ -328,27 +337,29 @@ class _Engine:
         return 10.0 ** result
 
 
-def _inverse_interpolation(xs, ds):
-    """x at d = 0 by Lagrange interpolation of x(d) through the finite points of
-    ``(ds, xs)`` (rows of 4, strictly decreasing d required; else fewer points,
-    down to the two bracket ends: linear); always inside the bracket."""
-    lo, hi = xs[:, 1], xs[:, 2]
-    dlo, dhi = ds[:, 1], ds[:, 2]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        x = lo - dlo * (hi - lo) / (dhi - dlo)
-        for cols in ((0, 1, 2), (1, 2, 3), (0, 1, 2, 3)):
+def _inverse_interpolation(xs, ds, lo, hi, subsets):
+    """x at d = 0 by Lagrange interpolation of x(d) through columns of ``(ds, xs)``.
+
+    ``subsets`` are tuples of columns, in increasing order of preference; a
+    subset counts for a row when its points are finite with d strictly
+    decreasing along it and the estimate lies strictly inside (lo, hi).
+    Returns NaN where no subset counts.
+    """
+    x = np.full(lo.size, np.nan)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        for cols in subsets:
             X, D = xs[:, cols], ds[:, cols]
-            ok = np.all(np.isfinite(X) & np.isfinite(D), axis=1) & np.all(np.diff(D, axis=1) < 0,
-                                                                          axis=1)
-            est = np.zeros(x.size)
+            ok = np.all(np.isfinite(X) & np.isfinite(D), axis=1) & \
+                np.all(np.diff(D, axis=1) < 0, axis=1)
+            est = np.zeros(lo.size)
             for i in range(len(cols)):
-                w = np.ones(x.size)
+                w = np.ones(lo.size)
                 for k in range(len(cols)):
                     if k != i:
                         w = w * (0.0 - D[:, k]) / (D[:, i] - D[:, k])
                 est = est + w * X[:, i]
             x = np.where(ok & np.isfinite(est) & (est > lo) & (est < hi), est, x)
-    return np.where(np.isfinite(x) & (x >= lo) & (x <= hi), x, 0.5 * (lo + hi))
+    return x
 
 
 def run_chunk(design, spec: MonteCarloSpec, start: int, stop: int, seed: int,
@@ -394,7 +405,7 @@ def run_chunk(design, spec: MonteCarloSpec, start: int, stop: int, seed: int,
 
 def _percentiles(x: np.ndarray, q, axis=0) -> np.ndarray:
     """Percentiles that tolerate +inf (an infinite CMRR): inf where reached."""
-    big = np.where(np.isinf(x), 1e300, x)           # our own copy: percentile may reorder it
+    big = np.where(x == np.inf, 1e300, x)           # our own copy: percentile may reorder it
     p = np.percentile(big, q, axis=axis, overwrite_input=True)
     return np.where(p >= 1e299, np.inf, p)
 
