@@ -327,10 +327,10 @@ class BatchEvaluator:
         """Yield ``(lo, hi, re, im)``: the determinant and numerator polynomials of
         samples ``lo … hi−1`` as real and imaginary parts, each ``(hi−lo, n_poly, n_f)``.
 
-        One real matrix product per block of samples (padded to the fixed height
-        set by :data:`GEMM_ELEMENTS`),
-        BLAS single-threaded: every call has the same shapes, so a sample's values
-        do not depend on which other samples share its block (chunking-independent).
+        One real matrix product per block of samples, zero-padded to the fixed
+        height set by :data:`GEMM_ELEMENTS`, with BLAS single-threaded: every call
+        has the same shapes, so a sample's values do not depend on which other
+        samples share its block (chunking-independent, bit for bit).
         """
         plan = self._plan(s)
         n = dG.shape[0]
