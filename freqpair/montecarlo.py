@@ -48,9 +48,11 @@ __all__ = ["Spread", "MonteCarloSpec", "MonteCarloChunk", "MonteCarloResult", "r
 
 #: Samples per random-number block (fixed: part of the reproducibility contract).
 BLOCK = 1024
-#: Sample × frequency elements evaluated per batch (bounds memory: ~40 MB).
-BATCH_ELEMENTS = 40_000
 _RELATIVE_KEYS = ("mismatch.load", "mismatch.gm")
+#: Corner refinement stops at steps below this [decades] (2.3e-11 relative in f):
+#: the exact CMRR carries rounding of ~1e-11 dB, i.e. ~1e-12 decades at the corner's
+#: slope, so smaller steps only chase rounding (measured: ~15 rounds instead of 3–4).
+XTOL_DECADES = 1e-11
 
 
 class MonteCarloError(FreqpairError, ValueError):
@@ -213,19 +215,43 @@ class _Engine:
         return _ratio_db(g.adm_se, g.acm_se, ref)
 
     def corners(self, curve, level, dG, dC, ref):
-        """Lowest f [Hz] where CMRR_se = level, per sample (vectorised bracketing + Illinois)."""
+        """Lowest f [Hz] where CMRR_se = level, per sample (vectorised bracketing + secant).
+
+        Each sample's crossing is bracketed on the run's grid (or the nominal
+        search range beyond it); up to four grid points around the bracket seed
+        the refinement (:meth:`_refine`).
+        """
         n = level.size
         out = np.full(n, np.inf)
         live = np.isfinite(level)
-        d = curve - level[:, None]
-        lo = np.full(n, np.nan)
-        hi = np.full(n, np.nan)
-        below = live & (d[:, 0] <= 0)
-        cross = (d[:, :-1] > 0) & (d[:, 1:] <= 0)
-        has = live & ~below & cross.any(axis=1)
-        if cross.shape[1]:
-            idx = np.argmax(cross, axis=1)
-            lo[has], hi[has] = self.f_hz[idx[has]], self.f_hz[idx[has] + 1]
+        # per sample: log10 f and level difference at grid points j−1 … j+2 (bracket j, j+1)
+        xs = np.full((n, 4), np.nan)
+        ds = np.full((n, 4), np.nan)
+
+        def seed(rows, grid, values, vrows, j):
+            """Fill xs, ds of samples ``rows`` from rows ``vrows`` of ``values`` (× grid)
+            at grid points j−1 … j+2."""
+            k = j[:, None] + np.arange(-1, 3)
+            edge = (k < 0) | (k >= grid.size)
+            k = np.clip(k, 0, grid.size - 1)
+            xs[rows] = np.where(edge, np.nan, np.log10(grid)[k])
+            ds[rows] = np.where(edge, np.nan, values[vrows[:, None], k] - level[rows][:, None])
+
+        def first_fall(above):
+            """Index j of the first grid step from above the level to at/below it (−1: none)."""
+            if above.shape[1] < 2:
+                return np.full(above.shape[0], -1)
+            cross = above[:, :-1] & ~above[:, 1:]
+            j = np.argmax(cross, axis=1)
+            return np.where(cross[np.arange(len(j)), j], j, -1)
+
+        above = curve > level[:, None]             # booleans only: no n × n_f float copy
+        below = live & ~above[:, 0]
+        j = first_fall(above)
+        has = live & ~below & (j >= 0)
+        sel = np.nonzero(has)[0]
+        if sel.size:
+            seed(sel, self.f_hz, curve, sel, j[sel])
         for ext, mask in ((self.low_ext, below), (self.high_ext, live & ~below & ~has)):
             sel = np.nonzero(mask)[0]
             if sel.size == 0:
@@ -234,52 +260,105 @@ class _Engine:
                 np.concatenate([[self.f_hz[-1]], ext])
             if grid.size < 2:
                 continue
-            g = self.ev.on_grid(s_of_hz(grid), dG[sel], dC[sel])
-            de = _ratio_db(g.adm_se, g.acm_se, ref[sel][:, None]) - level[sel][:, None]
-            if ext is self.low_ext:
-                de[:, 0] = np.maximum(de[:, 0], 1e-300)   # treat the lowest point as DC-like
-            cr = (de[:, :-1] > 0) & (de[:, 1:] <= 0)
-            ok = cr.any(axis=1)
-            j = np.argmax(cr, axis=1)
-            lo[sel[ok]], hi[sel[ok]] = grid[j[ok]], grid[j[ok] + 1]
-        todo = np.nonzero(np.isfinite(lo))[0]
+            cse, _ = self.ev.cmrr_on_grid(s_of_hz(grid), dG[sel], dC[sel], ref[sel])
+            if ext is self.low_ext:                   # treat the lowest point as DC-like
+                cse[:, 0] = np.maximum(cse[:, 0], np.nextafter(level[sel], np.inf))
+            je = first_fall(cse > level[sel][:, None])
+            ok = je >= 0
+            if ok.any():
+                seed(sel[ok], grid, cse, np.nonzero(ok)[0], je[ok])
+        todo = np.nonzero(np.isfinite(xs[:, 1]))[0]
         if todo.size:
-            out[todo] = self._refine(lo[todo], hi[todo], level[todo], dG[todo], dC[todo],
+            out[todo] = self._refine(xs[todo], ds[todo], level[todo], dG[todo], dC[todo],
                                      ref[todo])
         return out
 
-    def _refine(self, lo, hi, level, dG, dC, ref):
-        """Illinois (modified regula falsi) in log10 f, all samples at once.
+    def _refine(self, xs, ds, level, dG, dC, ref):
+        """Safeguarded secant in log10 f, all samples at once.
 
-        The bracket [a, b] keeps f(a) > 0 ≥ f(b); iteration stops when every
-        bracket is narrower than 1e-13 decades or hits the level exactly.
+        ``xs, ds`` (n, 4): log10 f and CMRR − level at grid points j−1 … j+2 (NaN
+        where absent); the root lies in [xs[:, 1], xs[:, 2]] (ds[:, 1] > 0 ≥ ds[:, 2]).
+        The first trial point is the inverse cubic (or quadratic, or linear)
+        interpolant of the grid values at level 0; the second interpolates through
+        those grid points and the first point together (degree up to 4); then
+        secant steps through the two latest points, replaced by the regula falsi
+        point of the current bracket when they leave it or fail to halve it
+        (Illinois weights). Stops
+        when a step is below :data:`XTOL_DECADES` (the returned point is that
+        last step's end), the level is hit exactly or the bracket is that narrow.
+        Every sample's sequence depends on its own values only.
         """
-        a, b = np.log10(lo), np.log10(hi)
-        fa = self.cmrr_se_at(lo, dG, dC, ref) - level
-        fb = self.cmrr_se_at(hi, dG, dC, ref) - level
-        side = np.zeros(a.size, dtype=int)
-        c = 0.5 * (a + b)
+        a, b = xs[:, 1].copy(), xs[:, 2].copy()
+        fa, fb = ds[:, 1].copy(), ds[:, 2].copy()
+        n = a.size
+        x = _inverse_interpolation(xs, ds, a, b, ((1, 2), (0, 1, 2), (1, 2, 3), (0, 1, 2, 3)))
+        x = np.where(np.isfinite(x), x, 0.5 * (a + b))
+        # the grid end with the smaller |d| is the secant partner of the first point
+        near = np.abs(fa) < np.abs(fb)
+        xp, fp = np.where(near, a, b), np.where(near, fa, fb)
+        side = np.zeros(n, dtype=int)
         done = fb == 0
-        c = np.where(done, b, c)
-        for _ in range(200):
+        result = np.where(done, b, x)
+        width = b - a
+        for it in range(100):
             act = np.nonzero(~done)[0]
             if act.size == 0:
                 break
-            A, B, FA, FB = a[act], b[act], fa[act], fb[act]
+            X = x[act]
+            FX = self.cmrr_se_at(10.0 ** X, dG[act], dC[act], ref[act]) - level[act]
+            A, B, FA, FB, sd = a[act], b[act], fa[act], fb[act], side[act]
+            pos = FX > 0                                   # root in [X, B]
+            A2, B2 = np.where(pos, X, A), np.where(pos, B, X)
+            FA2 = np.where(pos, FX, np.where(sd == -1, 0.5 * FA, FA))
+            FB2 = np.where(pos, np.where(sd == 1, 0.5 * FB, FB), FX)
+            sd2 = np.where(pos, 1, -1)
             with np.errstate(divide="ignore", invalid="ignore"):
-                C = B - FB * (B - A) / (FB - FA)
-            C = np.where(np.isfinite(C) & (C > A) & (C < B), C, 0.5 * (A + B))
-            FC = self.cmrr_se_at(10.0 ** C, dG[act], dC[act], ref[act]) - level[act]
-            c[act] = C
-            pos = FC > 0                      # root lies in [C, B]
-            sd = side[act]
-            fa[act] = np.where(pos, FC, np.where(sd == -1, 0.5 * FA, FA))
-            a[act] = np.where(pos, C, A)
-            fb[act] = np.where(pos, np.where(sd == 1, 0.5 * FB, FB), FC)
-            b[act] = np.where(pos, B, C)
-            side[act] = np.where(pos, 1, -1)
-            done[act] = (FC == 0) | (b[act] - a[act] <= 1e-13)
-        return 10.0 ** c
+                sec = X - FX * (X - xp[act]) / (FX - fp[act])
+                rf = B2 - FB2 * (B2 - A2) / (FB2 - FA2)
+            if it == 0:     # first step: interpolate through the grid points and X together
+                x5 = np.column_stack([xs[act, :2], X, xs[act, 2:]])
+                d5 = np.column_stack([ds[act, :2], FX, ds[act, 2:]])
+                est = _inverse_interpolation(x5, d5, A2, B2,
+                                             ((0, 1, 2, 3), (1, 2, 3, 4), (0, 1, 2, 3, 4)))
+                sec = np.where(np.isfinite(est), est, sec)
+            shrunk = (B2 - A2) <= 0.5 * width[act]
+            use_sec = np.isfinite(sec) & (sec > A2) & (sec < B2) & \
+                ((np.abs(sec - X) <= 0.25 * (B2 - A2)) | shrunk)
+            nxt = np.where(use_sec, sec, np.where(np.isfinite(rf) & (rf > A2) & (rf < B2), rf,
+                                                  0.5 * (A2 + B2)))
+            a[act], b[act], fa[act], fb[act], side[act] = A2, B2, FA2, FB2, sd2
+            width[act] = np.where(shrunk, B2 - A2, width[act])
+            xp[act], fp[act] = X, FX
+            x[act] = nxt
+            fin = (FX == 0) | (np.abs(nxt - X) <= XTOL_DECADES) | (B2 - A2 <= XTOL_DECADES)
+            result[act] = np.where(FX == 0, X, nxt)
+            done[act] = fin
+        return 10.0 ** result
+
+
+def _inverse_interpolation(xs, ds, lo, hi, subsets):
+    """x at d = 0 by Lagrange interpolation of x(d) through columns of ``(ds, xs)``.
+
+    ``subsets`` are tuples of columns, in increasing order of preference; a
+    subset counts for a row when its points are finite with d strictly
+    decreasing along it and the estimate lies strictly inside (lo, hi).
+    Returns NaN where no subset counts.
+    """
+    x = np.full(lo.size, np.nan)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        for cols in subsets:
+            X, D = xs[:, cols], ds[:, cols]
+            ok = np.all(np.isfinite(X) & np.isfinite(D), axis=1) & \
+                np.all(np.diff(D, axis=1) < 0, axis=1)
+            est = np.zeros(lo.size)
+            for i in range(len(cols)):
+                w = np.ones(lo.size)
+                for k in range(len(cols)):
+                    if k != i:
+                        w = w * (0.0 - D[:, k]) / (D[:, i] - D[:, k])
+                est = est + w * X[:, i]
+            x = np.where(ok & np.isfinite(est) & (est > lo) & (est < hi), est, x)
+    return x
 
 
 def run_chunk(design, spec: MonteCarloSpec, start: int, stop: int, seed: int,
@@ -314,16 +393,8 @@ def run_chunk(design, spec: MonteCarloSpec, start: int, stop: int, seed: int,
         raise MonteCarloError(f"sample {start + bad}: the sampled network is singular")
     cmrr_se_dc = _ratio_db(dc.adm_se, dc.acm_se, ref)
     cmrr_dc = _ratio_db(dc.adm, dc.acm_dm, ref) if bal else None
-    n = stop - start
-    cse = np.empty((n, f_hz.size))
-    cbal = np.empty((n, f_hz.size)) if bal else None
-    step = max(1, BATCH_ELEMENTS // max(f_hz.size, 1))
-    s = s_of_hz(f_hz)
-    for i in range(0, n, step):
-        g = ev.on_grid(s, dG[i:i + step], dC[i:i + step])
-        cse[i:i + step] = _ratio_db(g.adm_se, g.acm_se, ref[i:i + step, None])
-        if bal:
-            cbal[i:i + step] = _ratio_db(g.adm, g.acm_dm, ref[i:i + step, None])
+    # curves: blocks of a fixed number of samples inside (memory bounded by the block)
+    cse, cbal = ev.cmrr_on_grid(s_of_hz(f_hz), dG, dC, ref)
     if not np.all(np.isfinite(cse) | (cse == np.inf)):
         raise MonteCarloError("a sampled network is singular at some frequency")
     corner = eng.corners(cse, cmrr_se_dc - DB_3, dG, dC, ref)
@@ -333,8 +404,8 @@ def run_chunk(design, spec: MonteCarloSpec, start: int, stop: int, seed: int,
 
 def _percentiles(x: np.ndarray, q, axis=0) -> np.ndarray:
     """Percentiles that tolerate +inf (an infinite CMRR): inf where reached."""
-    big = np.where(np.isinf(x), 1e300, x)
-    p = np.percentile(big, q, axis=axis)
+    big = np.where(x == np.inf, 1e300, x)           # our own copy: percentile may reorder it
+    p = np.percentile(big, q, axis=axis, overwrite_input=True)
     return np.where(p >= 1e299, np.inf, p)
 
 
@@ -488,7 +559,9 @@ def run_montecarlo(design, spec: MonteCarloSpec, n: int, seed: int, f_hz=None,
 
     def cat(name):
         arrs = [getattr(p, name) for p in parts]
-        return None if arrs[0] is None else np.concatenate(arrs)
+        if arrs[0] is None:
+            return None
+        return arrs[0] if len(arrs) == 1 else np.concatenate(arrs)   # one chunk: no copy
 
     values = {k: np.concatenate([p.values[k] for p in parts]) for k in spec.keys}
     cse, cbal = cat("cmrr_se_db_f"), cat("cmrr_db_f")

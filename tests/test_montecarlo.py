@@ -146,3 +146,109 @@ def test_benchmark_smoke_runs_at_tiny_size():
     spec.loader.exec_module(mod)
     out = mod.main(["--samples", "20", "--points", "10", "--loop", "2"])
     assert out["ratio"] > 0
+
+
+# ---------------------------------------------------------------- engine internals
+
+ROOT = __import__("pathlib").Path(__file__).parent.parent
+WIDE = MonteCarloSpec.from_dict({"mismatch.load": ("uniform", 0.9),
+                                 "mismatch.gm": ("uniform", 0.9),
+                                 "tail.capacitance": ("uniform", 0.95),
+                                 "tail.resistance": ("uniform", 0.9),
+                                 "load.capacitance": ("uniform", 0.95)})
+
+
+def _direct_gains(design, f_hz):
+    """Oracle: scipy.linalg.solve of the sampled design's own freshly stamped G + sC."""
+    import scipy.linalg as sla
+    from freqpair.stage import build_stage
+    net = build_stage(design).network
+    G, C, B = net.matrices()
+    exc = np.column_stack([B @ [0.5, -0.5], B @ [1.0, 1.0]])          # DM, CM (DESIGN.md §2)
+    rows = np.array([net.selector({"o1": 1.0, "o2": -1.0}), net.selector({"o2": 1.0})])
+    return np.array([rows @ sla.solve(G + 2j * np.pi * f * C, exc) for f in f_hz])
+
+
+def test_grid_gains_of_wide_samples_match_a_direct_solve_of_each_sampled_network(design):
+    # oracle: scipy.linalg.solve on each sampled design's own network (fresh stamps, LAPACK),
+    # all five element kinds varied by up to ±95 %: the closed-form expansion is exact
+    from freqpair.batch import BatchEvaluator
+    from freqpair.montecarlo import sample_values
+    ev = BatchEvaluator(design, WIDE.keys)
+    dG, dC = ev.deltas(sample_values(design, WIDE, 0, 12, 5))
+    f = np.logspace(1, 10, 19)
+    g = ev.on_grid(2j * np.pi * f, dG, dC)
+    for i in (0, 4, 11):
+        h = _direct_gains(sampled_design(design, WIDE, i, 5), f)
+        np.testing.assert_allclose(g.adm[i], h[:, 0, 0], rtol=1e-9)
+        np.testing.assert_allclose(g.adm_se[i], h[:, 1, 0], rtol=1e-9)
+        np.testing.assert_allclose(g.acm_se[i], h[:, 1, 1], rtol=1e-9)
+        np.testing.assert_allclose(g.acm_dm[i], h[:, 0, 1], rtol=1e-9)
+
+
+def test_chunk_size_changes_no_bit_of_the_results(design):
+    # common practice: reproducibility contract — a sample's numbers never depend on the
+    # chunk it ran in (fixed-shape matrix products, per-sample refinement)
+    runs = [run_montecarlo(design, SPEC, 23, seed=4, f_hz=F, chunk=c) for c in (23, 1, 5)]
+    for other in runs[1:]:
+        for name in ("cmrr_se_db_f", "cmrr_db_f", "cmrr_se_dc_db", "cmrr_dc_db", "corner_hz"):
+            np.testing.assert_array_equal(getattr(other, name), getattr(runs[0], name),
+                                          err_msg=name)
+
+
+@pytest.mark.parametrize("f", [np.logspace(1, 3, 9), np.logspace(7, 9, 9)],
+                         ids=["grid-below-corners", "grid-above-corners"])
+def test_corner_beyond_the_run_grid_matches_single_analyses(design, f):
+    # oracle: freqpair.analyze on the sampled design (its own search grid and brentq);
+    # the run's grid lies wholly below (above) every corner, so each is bracketed past it
+    res = run_montecarlo(design, WIDE, 12, seed=2, f_hz=f)
+    for i in (0, 5, 11):
+        a = freqpair.analyze(sampled_design(design, WIDE, i, 2))
+        assert not f[0] <= a.cmrr_corner_hz <= f[-1]
+        assert res.corner_hz[i] == pytest.approx(a.cmrr_corner_hz, rel=1e-9)
+
+
+def test_corner_refinement_needs_few_exact_evaluations(design, monkeypatch):
+    # common practice: a secant step from a cubic interpolant of the grid converges
+    # superlinearly; more than 6 rounds of exact solves means the seed or the update broke
+    from freqpair import montecarlo
+    calls = []
+    real = montecarlo._Engine.cmrr_se_at
+    monkeypatch.setattr(montecarlo._Engine, "cmrr_se_at",
+                        lambda self, *a: calls.append(1) or real(self, *a))
+    res = run_montecarlo(design, SPEC, 64, seed=7, f_hz=np.logspace(1, 9, 161), chunk=64)
+    assert np.all(np.isfinite(res.corner_hz))
+    assert len(calls) <= 6
+
+
+def test_mirror_loaded_stage_matches_single_analyses():
+    # oracle: freqpair.analyze on the sampled designs; a mirror load has no balanced output
+    d = freqpair.load_design(ROOT / "examples" / "npn_mirror_load_simple_mirror_tail.toml")
+    spec = MonteCarloSpec.from_dict({"mismatch.load": ("normal", 0.02),
+                                     "mismatch.gm": ("normal", 0.02),
+                                     "load.capacitance": ("normal", 0.1)})
+    res = run_montecarlo(d, spec, 10, seed=3, f_hz=F)
+    assert res.cmrr_db_f is None and res.cmrr_dc_db is None
+    for i in (0, 9):
+        a = freqpair.analyze(sampled_design(d, spec, i, 3))
+        r = a.responses.at(F)
+        np.testing.assert_allclose(res.cmrr_se_db_f[i], 20 * np.log10(np.abs(r.adm_se / r.acm_se)),
+                                   rtol=1e-9)
+        assert res.cmrr_se_dc_db[i] == pytest.approx(a.cmrr_se_db, rel=1e-9)
+        assert res.corner_hz[i] == pytest.approx(a.cmrr_corner_hz, rel=1e-9)
+
+
+def test_matched_mos_pair_with_ideal_tail_has_infinite_dc_cmrr_and_no_corner_in_every_sample():
+    # oracle: DESIGN.md §2 — a common-mode gain zero to rounding makes the CMRR infinite
+    # and the corner null; analyze on the sampled design agrees on the curve above DC
+    d = freqpair.load_design(ROOT / "examples" / "nmos_resistor_ideal_tail.toml")
+    spec = MonteCarloSpec.from_dict({"load.capacitance": ("normal", 0.1)})
+    f = np.logspace(2, 9, 15)
+    res = run_montecarlo(d, spec, 8, seed=1, f_hz=f)
+    assert np.all(res.cmrr_se_dc_db == np.inf) and np.all(res.corner_hz == np.inf)
+    assert res.to_json()["cmrr_corner_hz"] == {"p5": None, "p50": None, "p95": None}
+    a = freqpair.analyze(sampled_design(d, spec, 3, 1))
+    r = a.responses.at(f)
+    assert a.cmrr_se_db is None
+    np.testing.assert_allclose(res.cmrr_se_db_f[3], 20 * np.log10(np.abs(r.adm_se / r.acm_se)),
+                               rtol=1e-9)
