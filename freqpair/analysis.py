@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .blas_threads import single_blas_thread
 from .design import Design
 from .frequency import FrequencyGrid
 from .metrics import DB_3, db, lowest_crossing, search_grid
@@ -138,6 +139,11 @@ def analyze(design: Design) -> Analysis:
     BiasError, NetworkError
         With one-line messages.
     """
+    with single_blas_thread():          # tiny matrices: BLAS worker threads only cost
+        return _analyze(design)
+
+
+def _analyze(design: Design) -> Analysis:
     stage = build_stage(design)
     resp = StageResponses(stage)
     dc = resp.dc()
