@@ -17,42 +17,40 @@ one thread.
 from __future__ import annotations
 
 import threading
-from contextlib import contextmanager
+from contextlib import ContextDecorator
 
 __all__ = ["single_blas_thread"]
 
 _lock = threading.Lock()
-_depth = 0
-_limiter = None
-_controller = None
+_state = {"depth": 0, "limiter": None, "controller": None}
 
 
 def _blas_controller():
     """The process's threadpoolctl controller (found once; scanning costs ms)."""
-    global _controller
-    if _controller is None:
+    if _state["controller"] is None:
         from threadpoolctl import ThreadpoolController
-        _controller = ThreadpoolController()
-    return _controller
+        _state["controller"] = ThreadpoolController()
+    return _state["controller"]
 
 
-@contextmanager
-def single_blas_thread():
-    """Context manager: BLAS uses one thread inside the block.
+class single_blas_thread(ContextDecorator):   # noqa: N801 (used like a function)
+    """Context manager (or decorator): BLAS uses one thread inside the block.
 
     Nested or concurrent use is cheap (a counter under a lock); the original
     thread counts are restored when the outermost block ends.
     """
-    global _depth, _limiter
-    with _lock:
-        if _depth == 0:
-            _limiter = _blas_controller().limit(limits=1, user_api="blas")
-        _depth += 1
-    try:
-        yield
-    finally:
+
+    def __enter__(self):
         with _lock:
-            _depth -= 1
-            if _depth == 0:
-                limiter, _limiter = _limiter, None
+            if _state["depth"] == 0:
+                _state["limiter"] = _blas_controller().limit(limits=1, user_api="blas")
+            _state["depth"] += 1
+        return self
+
+    def __exit__(self, *exc):
+        with _lock:
+            _state["depth"] -= 1
+            if _state["depth"] == 0:
+                limiter, _state["limiter"] = _state["limiter"], None
                 limiter.restore_original_limits()
+        return False

@@ -243,6 +243,8 @@ class _Reduced:
     Z: np.ndarray
     diag_a: np.ndarray
     diag_b: np.ndarray
+    norm_a: float
+    norm_b: float
     rows: tuple
 
 
@@ -296,8 +298,8 @@ class FrequencySolver:
                 row[1::2] = BB[i, i + 1:]
                 rows.append(row)
             Qh = np.ascontiguousarray(Q.conj().T)
-            self._red = _Reduced(AA, BB, Qh @ self.B, self.L @ Z, s0, Qh, Z,
-                                 diag_a, diag_b, tuple(rows))
+            self._red = _Reduced(AA, BB, Qh @ self.B, self.L @ Z, s0, Qh, Z, diag_a, diag_b,
+                                 float(np.abs(AA).max()), float(np.abs(BB).max()), tuple(rows))
         return self._red
 
     @single_blas_thread()
@@ -336,8 +338,15 @@ class FrequencySolver:
         # internal layout: unknown first, (n, m, n_f), so that every product with a
         # matrix of the pencil is one BLAS call on an (n, m·n_f) block
         sp = s / red.s0
+        pivots = red.diag_a[:, None] + red.diag_b[:, None] * sp[None, :]       # (n, n_f)
+        # singular to working precision where a pivot vanishes against the pencil
+        # (e.g. s = 0 with a node reached only through capacitors)
+        small = np.abs(pivots) <= 1e-14 * (red.norm_a + np.abs(sp) * red.norm_b)
+        if small.any():
+            bad = s[small.any(axis=0)][0]
+            raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            inv_diag = 1.0 / (red.diag_a[:, None] + red.diag_b[:, None] * sp[None, :])
+            inv_diag = 1.0 / pivots
             work = np.empty((n, 2, m, n_f), dtype=complex)
             y = self._back_substitute(red, sp, inv_diag, red.Bt[:, :, None], work)
             x = red.Z @ y.reshape(n, m * n_f)
@@ -403,7 +412,7 @@ class FrequencySolver:
         s = np.atleast_1d(np.asarray(s, dtype=complex))
         A = self.G[None, :, :] + s[:, None, None] * self.C[None, :, :]
         x = np.linalg.solve(A, np.broadcast_to(self.B, (s.size,) + self.B.shape))
-        return np.einsum("pn,fnm->fpm", self.L, x)
+        return self.L @ x
 
     # ------------------------------------------------------------ poles / zeros
     @single_blas_thread()
