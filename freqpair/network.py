@@ -18,6 +18,7 @@ eigenvalues of the (frequency-scaled) descriptor pencil.
 from __future__ import annotations
 
 import math
+import threading
 import warnings
 from dataclasses import dataclass
 
@@ -34,6 +35,10 @@ GROUND = "gnd"
 #: Up to this many frequencies, :meth:`FrequencySolver.response` solves each
 #: point directly (cheaper than setting up the vectorised back-substitution).
 DIRECT_MAX_POINTS = 4
+
+#: A sweep is solved in blocks of at most this many frequencies, each reusing
+#: per-thread buffers that stay in cache (measured in benchmarks/bench_core.py).
+SWEEP_BLOCK = 1024
 
 
 class Network:
@@ -248,6 +253,29 @@ class _Reduced:
     rows: tuple
 
 
+_buffers = threading.local()
+
+
+def _sweep_workspace(n: int, m: int, p: int, n_f: int) -> dict:
+    """Work buffers for one sweep block, kept per thread and reused across solvers
+    of the same size: freshly allocated blocks this large (hundreds of kB) cost
+    page faults on every call. One set per thread, at most ``SWEEP_BLOCK`` wide."""
+    key = (n, m, p, n_f)
+    ws = getattr(_buffers, "ws", None)
+    if ws is None or ws["key"] != key:
+        ws = {"key": key,
+              "work": np.empty((n, 2, m, n_f), dtype=complex),
+              "acc": np.empty(m * n_f, dtype=complex),
+              "x": np.empty((n, m * n_f), dtype=complex),
+              "gx": np.empty((n, m * n_f), dtype=complex),
+              "cx": np.empty((n, m * n_f), dtype=complex),
+              "rhs": np.empty((n, m * n_f), dtype=complex),
+              "out": np.empty((p, m * n_f), dtype=complex),
+              "out2": np.empty((p, m * n_f), dtype=complex)}
+        _buffers.ws = ws
+    return ws
+
+
 class FrequencySolver:
     """Evaluates ``H(s) = L (G + sC)^-1 B`` on many frequencies at once.
 
@@ -334,9 +362,6 @@ class FrequencySolver:
         if s.size <= DIRECT_MAX_POINTS:
             return self._response_few(s)
         red = self._reduce()
-        n, m, n_f = self.n, self.B.shape[1], s.size
-        # internal layout: unknown first, (n, m, n_f), so that every product with a
-        # matrix of the pencil is one BLAS call on an (n, m·n_f) block
         sp = s / red.s0
         pivots = red.diag_a[:, None] + red.diag_b[:, None] * sp[None, :]       # (n, n_f)
         # singular to working precision where a pivot vanishes against the pencil
@@ -345,54 +370,76 @@ class FrequencySolver:
         if small.any():
             bad = s[small.any(axis=0)][0]
             raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")
-        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            inv_diag = 1.0 / pivots
-            work = np.empty((n, 2, m, n_f), dtype=complex)
-            y = self._back_substitute(red, sp, inv_diag, red.Bt[:, :, None], work)
-            x = red.Z @ y.reshape(n, m * n_f)
-            # one step of iterative refinement against the original G + sC: the QZ
-            # solve is accurate relative to the whole pencil, and a response far below
-            # the network's largest gains (deep in the stop band, or a common-mode
-            # gain) lost up to 1e-4 relative without it; with it, it matches LU.
-            # G and C are real: multiply them with the complex x seen as interleaved
-            # real numbers (one real GEMM each, half the work of a complex one)
-            x_re = x.view(float)
-            gx = (self.G @ x_re).view(complex).reshape(n, m, n_f)
-            cx = (self.C @ x_re).view(complex).reshape(n, m, n_f)
-            cx *= s
-            gx += cx
-            np.subtract(self.B[:, :, None], gx, out=gx)          # residual B − (G + sC)x
-            rhs = (red.Qh @ gx.reshape(n, m * n_f)).reshape(n, m, n_f)
-            dy = self._back_substitute(red, sp, inv_diag, rhs, work)
-            out = (self.L @ x_re).view(complex)
-            out += red.Lt @ dy.reshape(n, m * n_f)
-        out = np.ascontiguousarray(out.reshape(-1, m, n_f).transpose(2, 0, 1))
+        inv_diag = 1.0 / pivots
+        out = np.empty((s.size, self.L.shape[0], self.B.shape[1]), dtype=complex)
+        with np.errstate(over="ignore", invalid="ignore"):   # non-finite → error below
+            for lo in range(0, s.size, SWEEP_BLOCK):
+                hi = min(lo + SWEEP_BLOCK, s.size)
+                self._sweep_block(red, s[lo:hi], sp[lo:hi], inv_diag[:, lo:hi], out[lo:hi])
         if not np.all(np.isfinite(out)):
             bad = s[~np.all(np.isfinite(out), axis=(1, 2))][0]
             raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")
         return out
 
+    def _workspace(self, n_f: int) -> dict:
+        """Buffers for one block of ``n_f`` frequencies (see :func:`_sweep_workspace`)."""
+        return _sweep_workspace(self.n, self.B.shape[1], self.L.shape[0], n_f)
+
+    def _sweep_block(self, red: _Reduced, s, sp, inv_diag, out) -> None:
+        """One block of frequencies into ``out`` (n_f, p, m): QZ solve + one refinement."""
+        n, m, n_f = self.n, self.B.shape[1], s.size
+        ws = self._workspace(n_f)
+        work = ws["work"]
+        # internal layout: unknown first, (n, m, n_f), so that every product with a
+        # matrix of the pencil is one BLAS call on an (n, m·n_f) block; y_i sits in
+        # work[i, 0] and is read in place as the 2-D strided view work2[:, :m·n_f]
+        work2 = work.reshape(n, 2 * m * n_f)
+        self._back_substitute(red, sp, inv_diag, red.Bt[:, :, None], work, ws["acc"])
+        x = np.matmul(red.Z, work2[:, :m * n_f], out=ws["x"])
+        # one step of iterative refinement against the original G + sC: the QZ
+        # solve is accurate relative to the whole pencil, and a response far below
+        # the network's largest gains (deep in the stop band, or a common-mode
+        # gain) lost up to 1e-4 relative without it; with it, it matches LU.
+        # G and C are real: multiply them with the complex x seen as interleaved
+        # real numbers (one real GEMM each, half the work of a complex one)
+        x_re = x.view(float)
+        gx = ws["gx"]
+        cx = ws["cx"]
+        np.matmul(self.G, x_re, out=gx.view(float))
+        np.matmul(self.C, x_re, out=cx.view(float))
+        cx3 = cx.reshape(n, m, n_f)
+        cx3 *= s
+        gx += cx
+        gx3 = gx.reshape(n, m, n_f)
+        np.subtract(self.B[:, :, None], gx3, out=gx3)          # residual B − (G + sC)x
+        rhs = np.matmul(red.Qh, gx, out=ws["rhs"])
+        self._back_substitute(red, sp, inv_diag, rhs.reshape(n, m, n_f), work, ws["acc"])
+        res = np.matmul(self.L, x_re, out=ws["out"].view(float)).view(complex)
+        res += np.matmul(red.Lt, work2[:, :m * n_f], out=ws["out2"])
+        out[...] = res.reshape(-1, m, n_f).transpose(2, 0, 1)
+
     @staticmethod
     def _back_substitute(red: _Reduced, sp: np.ndarray, inv_diag: np.ndarray,
-                         rhs: np.ndarray, work: np.ndarray) -> np.ndarray:
+                         rhs: np.ndarray, work: np.ndarray, acc: np.ndarray) -> None:
         """Solve (AA + sp·BB)·y = rhs for every frequency: n vectorised steps.
 
         ``rhs`` is (n, m, n_f) or (n, m, 1); ``work`` an (n, 2, m, n_f) buffer that
-        receives ``[y_i, sp·y_i]`` per unknown. Returns y, shape (n, m, n_f), new.
+        receives ``[y_i, sp·y_i]`` per unknown (y in ``work[:, 0]``); ``acc`` an
+        (m·n_f,) buffer. ``rhs`` must not share memory with ``work``.
         """
         n, _, m, n_f = work.shape
         stacked = work.reshape(2 * n, m * n_f)
+        acc2 = acc.reshape(m, n_f)
         for i in range(n - 1, -1, -1):
             y_i = work[i, 0]
             if i < n - 1:
-                acc = (red.rows[i] @ stacked[2 * i + 2:]).reshape(m, n_f)
-                np.subtract(rhs[i], acc, out=acc)
-                np.multiply(acc, inv_diag[i], out=y_i)
+                np.matmul(red.rows[i], stacked[2 * i + 2:], out=acc)
+                np.subtract(rhs[i], acc2, out=acc2)
+                np.multiply(acc2, inv_diag[i], out=y_i)
             else:
                 np.multiply(rhs[i], inv_diag[i], out=y_i)
             if i:
                 np.multiply(y_i, sp, out=work[i, 1])
-        return np.ascontiguousarray(work[:, 0])
 
     def _response_few(self, s: np.ndarray) -> np.ndarray:
         """A handful of frequencies (root-finding steps): direct LU per point is
