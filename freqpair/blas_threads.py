@@ -8,11 +8,12 @@ thread is never slower at these sizes. :func:`single_blas_thread` limits BLAS
 to one thread for the duration of a block and restores the previous setting
 afterwards.
 
-The BLAS thread count is process-wide (OpenBLAS keeps one pool), so the limit
-is reference-counted under a lock: nested and concurrent blocks in several
-threads share one limit, set by the first to enter and restored by the last to
-leave. While any block is open, other BLAS work in the process also runs on
-one thread.
+The BLAS thread count is process-wide (OpenBLAS keeps one pool), and
+threadpoolctl lets one Python thread at a time control it: the first thread
+to open a block sets the limit and restores it when its outermost block ends;
+blocks opened meanwhile in other threads change nothing (they run with
+whatever count is in force, so their results may differ from a one-thread run
+in the last bits). Nested blocks in one thread cost only a counter.
 """
 from __future__ import annotations
 
@@ -21,36 +22,38 @@ from contextlib import ContextDecorator
 
 __all__ = ["single_blas_thread"]
 
-_lock = threading.Lock()
-_state = {"depth": 0, "limiter": None, "controller": None}
+_controller_lock = threading.Lock()
+_controller = []          # the threadpoolctl controller, found once (scanning costs ms)
+_local = threading.local()  # per thread: nesting depth and the open limiter
 
 
 def _blas_controller():
-    """The process's threadpoolctl controller (found once; scanning costs ms)."""
-    if _state["controller"] is None:
-        from threadpoolctl import ThreadpoolController
-        _state["controller"] = ThreadpoolController()
-    return _state["controller"]
+    with _controller_lock:
+        if not _controller:
+            from threadpoolctl import ThreadpoolController
+            _controller.append(ThreadpoolController())
+        return _controller[0]
 
 
 class single_blas_thread(ContextDecorator):   # noqa: N801 (used like a function)
     """Context manager (or decorator): BLAS uses one thread inside the block.
 
-    Nested or concurrent use is cheap (a counter under a lock); the original
-    thread counts are restored when the outermost block ends.
+    The previous thread counts are restored when the outermost block of the
+    controlling thread ends; nested blocks are cheap.
     """
 
     def __enter__(self):
-        with _lock:
-            if _state["depth"] == 0:
-                _state["limiter"] = _blas_controller().limit(limits=1, user_api="blas")
-            _state["depth"] += 1
+        depth = getattr(_local, "depth", 0)
+        if depth == 0:
+            limiter = _blas_controller().limit(limits=1, user_api="blas")
+            limiter.__enter__()
+            _local.limiter = limiter
+        _local.depth = depth + 1
         return self
 
     def __exit__(self, *exc):
-        with _lock:
-            _state["depth"] -= 1
-            if _state["depth"] == 0:
-                limiter, _state["limiter"] = _state["limiter"], None
-                limiter.restore_original_limits()
+        _local.depth -= 1
+        if _local.depth == 0:
+            limiter, _local.limiter = _local.limiter, None
+            limiter.__exit__(None, None, None)
         return False

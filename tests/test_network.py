@@ -255,3 +255,34 @@ def test_solver_runs_blas_single_threaded_and_restores_the_setting():
             pass
         assert all(t == 1 for t in _blas_threads())
     assert _blas_threads() == before
+
+
+def test_sweeps_in_concurrent_threads_equal_the_same_sweeps_run_alone():
+    # oracle: numpy.linalg.solve per frequency, and the sweep run alone in one
+    # thread (work buffers are per thread; a shared buffer would mix answers —
+    # rounding-level differences are allowed: a thread that does not control the
+    # BLAS thread count may run with more than one)
+    import threading
+    nets = [_gain_ladder(), rc_divider()]
+    solvers = [nets[0].solver(nets[0].selector({"n7": 1.0})),
+               nets[1].solver(nets[1].selector({"b": 1.0}))]
+    grids = [2j * np.pi * np.logspace(0, 10, 700), 2j * np.pi * np.logspace(2, 8, 1500)]
+    alone = [sol.response(s) for sol, s in zip(solvers, grids)]
+    for sol, s, h in zip(solvers, grids, alone):
+        G, C, B = sol.G, sol.C, sol.B
+        ref = np.array([sol.L @ np.linalg.solve(G + sk * C, B) for sk in s])
+        np.testing.assert_allclose(h, ref, rtol=1e-9, atol=0)
+    results = {}
+
+    def run(k):
+        results[k] = [solvers[k % 2].response(grids[k % 2]) for _ in range(5)]
+
+    threads = [threading.Thread(target=run, args=(k,)) for k in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    for k, hs in results.items():
+        for h in hs:
+            np.testing.assert_allclose(h, alone[k % 2], rtol=1e-12, atol=0)
+    assert len(results) == 4
