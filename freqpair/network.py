@@ -453,6 +453,30 @@ class FrequencySolver:
             raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")
         return out
 
+    def transfer_at(self, s: complex, b: np.ndarray, l: np.ndarray) -> np.ndarray:
+        """``l·(G + sC)⁻¹·b`` at one complex frequency ``s`` [rad/s], by a direct solve.
+
+        The lean path for root-finding steps (one LU of an n×n matrix, no
+        sweep set-up, no other gains).
+
+        Parameters
+        ----------
+        s : complex
+            Complex frequency [rad/s].
+        b : ndarray, shape (n,) or (n, k)
+            Right-hand side(s).
+        l : ndarray, shape (n,) or (q, n)
+            Output row(s).
+        """
+        try:
+            x = np.linalg.solve(self.G + s * self.C, b)
+        except np.linalg.LinAlgError:
+            x = np.full(np.shape(b), np.nan)
+        out = l @ x
+        if not np.all(np.isfinite(out)):
+            raise NetworkError(f"the network is singular at f = {s.imag / 2 / np.pi:.6g} Hz")
+        return out
+
     @single_blas_thread()
     def response_direct(self, s: np.ndarray) -> np.ndarray:
         """Reference: a batched dense solve of (G + sC) at each s (slower)."""
