@@ -286,3 +286,28 @@ def test_sweeps_in_concurrent_threads_equal_the_same_sweeps_run_alone():
         for h in hs:
             np.testing.assert_allclose(h, alone[k % 2], rtol=1e-12, atol=0)
     assert len(results) == 4
+
+
+def test_transfer_at_one_frequency_matches_the_rc_lowpass_formula():
+    # oracle: hand KCL — v_b/v_in = 1/(1 + sRC) for the RC divider; 1 − that at the
+    # resistor's far end seen as v_a − v_b (two output rows at once)
+    r, c = 1e3, 1e-9
+    net = rc_divider(r, c)
+    G, C, B = net.matrices()
+    solver = net.solver(net.selector({"b": 1.0}))
+    s = 2j * np.pi * 2.5e5
+    rows = np.array([net.selector({"b": 1.0}), net.selector({"a": 1.0, "b": -1.0})])
+    h = solver.transfer_at(s, B[:, 0], rows)
+    lowpass = 1 / (1 + s * r * c)
+    np.testing.assert_allclose(h, [lowpass, 1 - lowpass], rtol=1e-13)
+
+
+def test_transfer_at_a_singular_frequency_is_a_named_error():
+    # oracle: KCL at s = 0 — a node reached only through capacitors has no voltage
+    net = rc_divider()
+    net.capacitor("b", "x", 1e-12)
+    net.capacitor("x", GROUND, 1e-12)
+    G, C, B = net.matrices()
+    solver = net.solver(net.selector({"x": 1.0}))
+    with pytest.raises(NetworkError, match="singular at f = 0 Hz"):
+        solver.transfer_at(0j, B[:, 0], net.selector({"x": 1.0}))
