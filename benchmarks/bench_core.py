@@ -111,7 +111,7 @@ def main(argv=None) -> dict:
         for den in ("qz_reused", "qz_with_reduction"):
             rb = t[num + "_ms"] / t[den + "_ms"]
             rm = t[num + "_median_ms"] / t[den + "_median_ms"]
-            print(f"    {labels[num][4:]:28s} / QZ {den[3:]:15s} {rb:7.1f}x {rm:7.1f}x")
+            print(f"    {labels[num][4:]:32s} / QZ {den[3:]:15s} {rb:7.1f}x {rm:7.1f}x")
     print(f"  max relative disagreement: QZ vs loop {t['max_rel_qz_vs_loop']:.1e}, "
           f"batched vs loop {t['max_rel_batched_vs_loop']:.1e}")
     return t
