@@ -8,12 +8,13 @@ thread is never slower at these sizes. :func:`single_blas_thread` limits BLAS
 to one thread for the duration of a block and restores the previous setting
 afterwards.
 
-The BLAS thread count is process-wide (OpenBLAS keeps one pool), and
-threadpoolctl lets one Python thread at a time control it: the first thread
-to open a block sets the limit and restores it when its outermost block ends;
-blocks opened meanwhile in other threads change nothing (they run with
-whatever count is in force, so their results may differ from a one-thread run
-in the last bits). Nested blocks in one thread cost only a counter.
+The BLAS thread count is process-wide (OpenBLAS keeps one pool), so the
+limit is reference-counted over all threads under a lock: the first block to
+open (in any thread) records the current counts and sets one thread; the last
+to close restores what was recorded. Nested and concurrent blocks cost only a
+counter. threadpoolctl lets one Python thread at a time change OpenBLAS (the
+first to do so, while it lives); control is released before each change, so
+the thread that opens or closes the outermost block can make it.
 """
 from __future__ import annotations
 
@@ -22,38 +23,44 @@ from contextlib import ContextDecorator
 
 __all__ = ["single_blas_thread"]
 
-_controller_lock = threading.Lock()
-_controller = []          # the threadpoolctl controller, found once (scanning costs ms)
-_local = threading.local()  # per thread: nesting depth and the open limiter
+_lock = threading.Lock()
+_state = {"controller": None, "limiter": None, "open": 0}
 
 
-def _blas_controller():
-    with _controller_lock:
-        if not _controller:
-            from threadpoolctl import ThreadpoolController
-            _controller.append(ThreadpoolController())
-        return _controller[0]
+def _release_control():
+    """Let this thread change OpenBLAS limits (threadpoolctl keeps the first
+    thread that changed them in control while that thread lives)."""
+    try:
+        from threadpoolctl import OpenBLASController
+    except ImportError:       # older threadpoolctl: no controlling thread
+        return
+    OpenBLASController.clear_controlling_thread(force=True)
 
 
 class single_blas_thread(ContextDecorator):   # noqa: N801 (used like a function)
     """Context manager (or decorator): BLAS uses one thread inside the block.
 
-    The previous thread counts are restored when the outermost block of the
-    controlling thread ends; nested blocks are cheap.
+    The counts in force before the first open block are restored when the last
+    open block (in any thread) ends.
     """
 
     def __enter__(self):
-        depth = getattr(_local, "depth", 0)
-        if depth == 0:
-            limiter = _blas_controller().limit(limits=1, user_api="blas")
-            limiter.__enter__()
-            _local.limiter = limiter
-        _local.depth = depth + 1
+        with _lock:
+            if _state["open"] == 0:
+                if _state["controller"] is None:    # found once (scanning costs ms)
+                    from threadpoolctl import ThreadpoolController
+                    _state["controller"] = ThreadpoolController()
+                _release_control()
+                _state["limiter"] = _state["controller"].limit(limits=1, user_api="blas")
+            _state["open"] += 1
         return self
 
     def __exit__(self, *exc):
-        _local.depth -= 1
-        if _local.depth == 0:
-            limiter, _local.limiter = _local.limiter, None
-            limiter.__exit__(None, None, None)
+        with _lock:
+            _state["open"] -= 1
+            if _state["open"] == 0:
+                limiter, _state["limiter"] = _state["limiter"], None
+                _release_control()
+                limiter.restore_original_limits()
+                _release_control()
         return False

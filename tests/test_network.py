@@ -322,3 +322,41 @@ def test_short_frequency_list_names_the_singular_frequency_not_the_first():
     solver = net.solver(net.selector({"x": 1.0}))
     with pytest.raises(NetworkError, match="singular at f = 0 Hz"):
         solver.response(2j * np.pi * np.array([10.0, 100.0, 0.0]))
+
+
+def test_a_new_thread_can_limit_blas_after_overlapping_blocks_in_other_threads():
+    # oracle: threadpoolctl's own report of the BLAS thread count inside the block
+    pytest.importorskip("threadpoolctl")
+    import threading
+    from freqpair.blas_threads import single_blas_thread
+    before = _blas_threads()
+    a_in, b_in, a_out = threading.Event(), threading.Event(), threading.Event()
+
+    def first():
+        with single_blas_thread():
+            a_in.set()
+            b_in.wait(5)
+        a_out.set()
+
+    def second():
+        a_in.wait(5)
+        with single_blas_thread():
+            b_in.set()
+            a_out.wait(5)          # the first thread leaves while this block is open
+
+    seen = {}
+
+    def third():
+        with single_blas_thread():
+            seen["inside"] = _blas_threads()
+
+    threads = [threading.Thread(target=first), threading.Thread(target=second)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    t = threading.Thread(target=third)
+    t.start()
+    t.join()
+    assert seen["inside"] and all(n == 1 for n in seen["inside"])
+    assert _blas_threads() == before
