@@ -360,3 +360,16 @@ def test_a_new_thread_can_limit_blas_after_overlapping_blocks_in_other_threads()
     t.join()
     assert seen["inside"] and all(n == 1 for n in seen["inside"])
     assert _blas_threads() == before
+
+
+def test_sweep_accepts_complex_matrices():
+    # oracle: numpy.linalg.solve on the same (complex) G + sC at every frequency
+    net = _gain_ladder()
+    G, C, B = net.matrices()
+    rng = np.random.default_rng(5)
+    Gc = G + 1j * 1e-4 * np.diag(rng.uniform(size=G.shape[0]))
+    L = rng.normal(size=(2, G.shape[0])) + 1j * rng.normal(size=(2, G.shape[0]))
+    s = 2j * np.pi * np.logspace(0, 10, 64)
+    ref = np.array([L @ np.linalg.solve(Gc + sk * C, B) for sk in s])
+    np.testing.assert_allclose(FrequencySolver(Gc, C, B, L).response(s), ref, rtol=1e-9,
+                               atol=1e-13 * np.abs(ref).max())
