@@ -3,7 +3,8 @@ and the QZ solver against direct solves.
 
 Oracles: hand-written nodal equations (Kirchhoff's current law) for small
 networks; numpy.linalg.solve on the same G + sC; scipy.signal.freqs on the
-first-order RC transfer function.
+first-order RC transfer function; mpmath (40-digit LU) deep in a stop band;
+threadpoolctl's own report of the BLAS thread count.
 """
 import math
 import warnings
