@@ -18,12 +18,14 @@ eigenvalues of the (frequency-scaled) descriptor pencil.
 from __future__ import annotations
 
 import math
+import threading
 import warnings
 from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg as sla
 
+from .blas_threads import single_blas_thread
 from .errors import NetworkError
 
 __all__ = ["Network", "FrequencySolver", "GROUND"]
@@ -31,8 +33,14 @@ __all__ = ["Network", "FrequencySolver", "GROUND"]
 GROUND = "gnd"
 
 #: Up to this many frequencies, :meth:`FrequencySolver.response` solves each
-#: point directly (cheaper than setting up the vectorised back-substitution).
-DIRECT_MAX_POINTS = 4
+#: point directly (batched LU): below ≈ 40 points that is cheaper than the QZ
+#: set-up and back-substitution sweep (measured, 11 unknowns), and at least as
+#: accurate.
+DIRECT_MAX_POINTS = 32
+
+#: A sweep is solved in blocks of at most this many frequencies, each reusing
+#: per-thread buffers that stay in cache (measured in benchmarks/bench_core.py).
+SWEEP_BLOCK = 1024
 
 
 class Network:
@@ -228,6 +236,13 @@ class Network:
 
 @dataclass(frozen=True)
 class _Reduced:
+    """The pencil after one QZ reduction, with what every sweep reuses.
+
+    ``rows[i]`` interleaves row i of AA and BB right of the diagonal,
+    ``[AA[i,i+1], BB[i,i+1], AA[i,i+2], …]``, so that one product with the
+    stacked unknowns ``[y_j, sp·y_j]`` (j > i) gives Σ_j (AA_ij + sp·BB_ij)·y_j.
+    """
+
     AA: np.ndarray
     BB: np.ndarray
     Bt: np.ndarray
@@ -235,6 +250,43 @@ class _Reduced:
     s0: float
     Qh: np.ndarray
     Z: np.ndarray
+    diag_a: np.ndarray
+    diag_b: np.ndarray
+    norm_a: float
+    norm_b: float
+    rows: tuple
+
+
+_buffers = threading.local()
+
+
+def _sweep_workspace(n: int, m: int, p: int, n_f: int) -> dict:
+    """Work buffers for one sweep block, kept per thread and reused across solvers
+    of the same size: freshly allocated blocks this large (hundreds of kB) cost
+    page faults on every call. One set per thread, at most ``SWEEP_BLOCK`` wide."""
+    key = (n, m, p, n_f)
+    ws = getattr(_buffers, "ws", None)
+    if ws is None or ws["key"] != key:
+        ws = {"key": key,
+              "work": np.empty((n, 2, m, n_f), dtype=complex),
+              "acc": np.empty(m * n_f, dtype=complex),
+              "x": np.empty((n, m * n_f), dtype=complex),
+              "gx": np.empty((n, m * n_f), dtype=complex),
+              "cx": np.empty((n, m * n_f), dtype=complex),
+              "rhs": np.empty((n, m * n_f), dtype=complex),
+              "out": np.empty((p, m * n_f), dtype=complex),
+              "out2": np.empty((p, m * n_f), dtype=complex)}
+        _buffers.ws = ws
+    return ws
+
+
+def _times(M: np.ndarray, x: np.ndarray, out: np.ndarray) -> np.ndarray:
+    """``M @ x`` into ``out`` for a complex C-contiguous ``x``; a real ``M`` multiplies
+    x seen as interleaved real numbers (one real GEMM, half a complex one's work)."""
+    if np.iscomplexobj(M):
+        return np.matmul(M, x, out=out)
+    np.matmul(M, x.view(float), out=out.view(float))
+    return out
 
 
 class FrequencySolver:
@@ -254,7 +306,9 @@ class FrequencySolver:
     The pencil is frequency-scaled by ``s0 = ‖G‖/‖C‖`` and reduced once to
     generalized Schur form ``G = Q·AA·Zᴴ``, ``s0⁻¹·C``-scaled likewise;
     each frequency is then an upper-triangular solve, vectorised over all
-    frequencies (n Python steps, not n_f).
+    frequencies (n Python steps, not n_f), followed by one step of iterative
+    refinement against the original ``G + sC``. Every method runs BLAS on one
+    thread (:func:`freqpair.blas_threads.single_blas_thread`).
     """
 
     def __init__(self, G, C, B, L):
@@ -274,16 +328,24 @@ class FrequencySolver:
         if self._red is None:
             s0 = self.s0
             AA, BB, Q, Z = sla.qz(self.G, self.C * s0, output="complex")
-            diag_a = np.abs(np.diag(AA))
-            diag_b = np.abs(np.diag(BB))
+            diag_a = np.diag(AA).copy()
+            diag_b = np.diag(BB).copy()
             scale = max(np.abs(AA).max(), np.abs(BB).max(), 1e-300)
-            if np.any((diag_a <= 1e-14 * scale) & (diag_b <= 1e-14 * scale)):
+            if np.any((np.abs(diag_a) <= 1e-14 * scale) & (np.abs(diag_b) <= 1e-14 * scale)):
                 raise NetworkError("the network is singular at every frequency "
                                    "(a node has no defined voltage)")
-            Qh = Q.conj().T
-            self._red = _Reduced(AA, BB, Qh @ self.B, self.L @ Z, s0, Qh, Z)
+            rows = []
+            for i in range(self.n):
+                row = np.empty(2 * (self.n - i - 1), dtype=complex)
+                row[0::2] = AA[i, i + 1:]
+                row[1::2] = BB[i, i + 1:]
+                rows.append(row)
+            Qh = np.ascontiguousarray(Q.conj().T)
+            self._red = _Reduced(AA, BB, Qh @ self.B, self.L @ Z, s0, Qh, Z, diag_a, diag_b,
+                                 float(np.abs(AA).max()), float(np.abs(BB).max()), tuple(rows))
         return self._red
 
+    @single_blas_thread()
     def dc(self) -> np.ndarray:
         """``H(0) = L G⁻¹ B`` by a direct solve, shape (p, m)."""
         try:
@@ -301,6 +363,7 @@ class FrequencySolver:
         # at 5–9 ms (vs 0.03 ms) for an 11-node G when BLAS threads compete for cores
         return self.L @ np.linalg.solve(self.G, self.B)
 
+    @single_blas_thread()
     def response(self, s: np.ndarray) -> np.ndarray:
         """Transfer matrix at complex frequencies ``s`` [rad/s].
 
@@ -317,20 +380,57 @@ class FrequencySolver:
             return self._response_few(s)
         red = self._reduce()
         sp = s / red.s0
-        y = self._back_substitute(red, sp, np.broadcast_to(red.Bt, (s.size,) + red.Bt.shape))
-        # one step of iterative refinement against the original G + sC: the QZ
-        # solve is accurate relative to the whole pencil, and a response far below
-        # the network's largest gains (deep in the stop band, or a common-mode
-        # gain) lost up to 1e-4 relative without it; with it, it matches LU
-        # (stacked matmul, not einsum: einsum was measured 7x slower here)
-        x = red.Z @ y
-        residual = self.B - self.G @ x - s[:, None, None] * (self.C @ x)
-        dy = self._back_substitute(red, sp, red.Qh @ residual)
-        out = self.L @ x + red.Lt @ dy
+        pivots = red.diag_a[:, None] + red.diag_b[:, None] * sp[None, :]       # (n, n_f)
+        # singular to working precision where a pivot vanishes against the pencil
+        # (e.g. s = 0 with a node reached only through capacitors)
+        small = np.abs(pivots) <= 1e-14 * (red.norm_a + np.abs(sp) * red.norm_b)
+        if small.any():
+            bad = s[small.any(axis=0)][0]
+            raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")
+        inv_diag = 1.0 / pivots
+        out = np.empty((s.size, self.L.shape[0], self.B.shape[1]), dtype=complex)
+        with np.errstate(over="ignore", invalid="ignore"):   # non-finite → error below
+            for lo in range(0, s.size, SWEEP_BLOCK):
+                hi = min(lo + SWEEP_BLOCK, s.size)
+                self._sweep_block(red, s[lo:hi], sp[lo:hi], inv_diag[:, lo:hi], out[lo:hi])
         if not np.all(np.isfinite(out)):
             bad = s[~np.all(np.isfinite(out), axis=(1, 2))][0]
             raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")
         return out
+
+    def _workspace(self, n_f: int) -> dict:
+        """Buffers for one block of ``n_f`` frequencies (see :func:`_sweep_workspace`)."""
+        return _sweep_workspace(self.n, self.B.shape[1], self.L.shape[0], n_f)
+
+    def _sweep_block(self, red: _Reduced, s, sp, inv_diag, out) -> None:
+        """One block of frequencies into ``out`` (n_f, p, m): QZ solve + one refinement."""
+        n, m, n_f = self.n, self.B.shape[1], s.size
+        ws = self._workspace(n_f)
+        work = ws["work"]
+        # internal layout: unknown first, (n, m, n_f), so that every product with a
+        # matrix of the pencil is one BLAS call on an (n, m·n_f) block; y_i sits in
+        # work[i, 0] and is read in place as the 2-D strided view work2[:, :m·n_f]
+        work2 = work.reshape(n, 2 * m * n_f)
+        self._back_substitute(red, sp, inv_diag, red.Bt[:, :, None], work, ws["acc"])
+        x = np.matmul(red.Z, work2[:, :m * n_f], out=ws["x"])
+        # one step of iterative refinement against the original G + sC: the QZ
+        # solve is accurate relative to the whole pencil, and a response far below
+        # the network's largest gains (deep in the stop band, or a common-mode
+        # gain) lost up to 1e-4 relative without it; with it, it matches LU.
+        # G and C are real: multiply them with the complex x seen as interleaved
+        # real numbers (one real GEMM each, half the work of a complex one)
+        gx = _times(self.G, x, ws["gx"])
+        cx = _times(self.C, x, ws["cx"])
+        cx3 = cx.reshape(n, m, n_f)
+        cx3 *= s
+        gx += cx
+        gx3 = gx.reshape(n, m, n_f)
+        np.subtract(self.B[:, :, None], gx3, out=gx3)          # residual B − (G + sC)x
+        rhs = np.matmul(red.Qh, gx, out=ws["rhs"])
+        self._back_substitute(red, sp, inv_diag, rhs.reshape(n, m, n_f), work, ws["acc"])
+        res = _times(self.L, x, ws["out"])
+        res += np.matmul(red.Lt, work2[:, :m * n_f], out=ws["out2"])
+        out[...] = res.reshape(-1, m, n_f).transpose(2, 0, 1)
 
     def _floating_at_dc(self) -> str:
         """Name of the unknown that dominates the null vector of G (for messages)."""
@@ -340,44 +440,86 @@ class FrequencySolver:
             return f"node {self.names[k]!r}"
         return f"unknown {k}"
 
-    def _back_substitute(self, red: "_Reduced", sp: np.ndarray, rhs: np.ndarray) -> np.ndarray:
-        """Solve (AA + sp·BB)·y = rhs for every frequency: n vectorised steps."""
-        n = self.n
-        y = np.empty(rhs.shape, dtype=complex)
-        AA, BB = red.AA, red.BB
+    @staticmethod
+    def _back_substitute(red: _Reduced, sp: np.ndarray, inv_diag: np.ndarray,
+                         rhs: np.ndarray, work: np.ndarray, acc: np.ndarray) -> None:
+        """Solve (AA + sp·BB)·y = rhs for every frequency: n vectorised steps.
+
+        ``rhs`` is (n, m, n_f) or (n, m, 1); ``work`` an (n, 2, m, n_f) buffer that
+        receives ``[y_i, sp·y_i]`` per unknown (y in ``work[:, 0]``); ``acc`` an
+        (m·n_f,) buffer. ``rhs`` must not share memory with ``work``.
+        """
+        n, _, m, n_f = work.shape
+        stacked = work.reshape(2 * n, m * n_f)
+        acc2 = acc.reshape(m, n_f)
         for i in range(n - 1, -1, -1):
-            r = rhs[:, i, :]
+            y_i = work[i, 0]
             if i < n - 1:
-                row = AA[i, i + 1:][None, :] + sp[:, None] * BB[i, i + 1:][None, :]
-                r = r - (row[:, None, :] @ y[:, i + 1:, :])[:, 0, :]
-            diag = AA[i, i] + sp * BB[i, i]
-            y[:, i, :] = r / diag[:, None]
-        return y
+                np.matmul(red.rows[i], stacked[2 * i + 2:], out=acc)
+                np.subtract(rhs[i], acc2, out=acc2)
+                np.multiply(acc2, inv_diag[i], out=y_i)
+            else:
+                np.multiply(rhs[i], inv_diag[i], out=y_i)
+            if i:
+                np.multiply(y_i, sp, out=work[i, 1])
 
     def _response_few(self, s: np.ndarray) -> np.ndarray:
-        """A handful of frequencies (root-finding steps): direct LU per point is
-        cheaper than the back-substitution sweep and at least as accurate."""
+        """A few frequencies (root-finding steps, short lists): a batched direct LU
+        is cheaper than setting up the back-substitution sweep, and at least as
+        accurate."""
         try:
             out = self.response_direct(s)
-        except np.linalg.LinAlgError:
+        except np.linalg.LinAlgError:        # one singular point fails the whole stack
             out = np.full((s.size, self.L.shape[0], self.B.shape[1]), np.nan, dtype=complex)
+            for k in range(s.size):
+                try:
+                    out[k] = self.response_direct(s[k:k + 1])[0]
+                except np.linalg.LinAlgError:
+                    break
         if not np.all(np.isfinite(out)):
             bad = s[~np.all(np.isfinite(out), axis=(1, 2))][0]
             raise NetworkError(f"the network is singular at f = {bad.imag / 2 / np.pi:.6g} Hz")
         return out
 
+    def transfer_at(self, s: complex, b: np.ndarray, l: np.ndarray) -> np.ndarray:
+        """``l·(G + sC)⁻¹·b`` at one complex frequency ``s`` [rad/s], by a direct solve.
+
+        The lean path for root-finding steps (one LU of an n×n matrix, no
+        sweep set-up, no other gains).
+
+        Parameters
+        ----------
+        s : complex
+            Complex frequency [rad/s].
+        b : ndarray, shape (n,) or (n, k)
+            Right-hand side(s).
+        l : ndarray, shape (n,) or (q, n)
+            Output row(s).
+        """
+        try:
+            x = np.linalg.solve(self.G + s * self.C, b)
+        except np.linalg.LinAlgError:
+            x = np.full(np.shape(b), np.nan)
+        out = l @ x
+        if not np.all(np.isfinite(out)):
+            raise NetworkError(f"the network is singular at f = {s.imag / 2 / np.pi:.6g} Hz")
+        return out
+
+    @single_blas_thread()
     def response_direct(self, s: np.ndarray) -> np.ndarray:
         """Reference: a batched dense solve of (G + sC) at each s (slower)."""
         s = np.atleast_1d(np.asarray(s, dtype=complex))
         A = self.G[None, :, :] + s[:, None, None] * self.C[None, :, :]
         x = np.linalg.solve(A, np.broadcast_to(self.B, (s.size,) + self.B.shape))
-        return np.einsum("pn,fnm->fpm", self.L, x)
+        return self.L @ x
 
     # ------------------------------------------------------------ poles / zeros
+    @single_blas_thread()
     def poles(self) -> np.ndarray:
         """Finite natural frequencies of the network [rad/s] (all modes)."""
         return finite_generalized_eigenvalues(self.G, self.C, self.s0)
 
+    @single_blas_thread()
     def zeros(self, b: np.ndarray, l: np.ndarray) -> np.ndarray:
         """Finite transmission zeros [rad/s] of the SISO response ``l·(G+sC)⁻¹·b``.
 
@@ -398,6 +540,7 @@ class FrequencySolver:
         return finite_generalized_eigenvalues(Ga, Ca, self.s0)
 
 
+@single_blas_thread()
 def finite_generalized_eigenvalues(G, C, s0: float, tol: float = 1e-12) -> np.ndarray:
     """Finite roots s of det(G + s·C) = 0 [rad/s].
 
