@@ -277,7 +277,7 @@ def _drive(i: int, url: str, deadline: float, out: dict, connected) -> None:
     from bokeh.client import pull_session
 
     rng = np.random.default_rng([SEED, i])
-    rec = out[i] = {"latency_s": [], "sizes": [], "tally": Counter(), "done": 0}
+    rec = out[i] = {"latency_s": [], "sizes": [], "tally": Counter(), "done": 0, "sent": 0}
     # Bokeh formats every patched value for a trace-level log line even when
     # that level is off; short array reprs keep this client's CPU for the changes
     with np.printoptions(threshold=8, edgeitems=1):
@@ -313,6 +313,7 @@ def _changes(i, deadline, rng, rec, session) -> None:
             widget.set_from_json("value", change.value)
         else:
             widget.value = change.value
+        rec["sent"] = max(rec["sent"], len(change.value))    # this patch's largest frame
         _roundtrip(session, rec["sizes"])
         rec["latency_s"].append(time.perf_counter() - t0)
         msg = _message(doc)
@@ -389,7 +390,8 @@ def test_twenty_sessions_of_random_changes_stay_alive_bounded_and_exact(server, 
                f"{rss_peak:.0f}")
     details = (f"connecting {N_SESSIONS} sessions took {t_connected:.1f} s\n"
                f"largest websocket frame: server patches {biggest / 1024:.0f} kB, whole "
-               f"document {out[0]['pull_bytes'] / 1024:.0f} kB\n"
+               f"document {out[0]['pull_bytes'] / 1024:.0f} kB; from a client "
+               f"{max(r['sent'] for r in out.values()) / 1024:.0f} kB (value of one change)\n"
                "changes (kind, verdict: count): " +
                ", ".join(f"{w} {v}: {n}" for (w, v), n in sorted(tally.items())) + "\n"
                "server RSS samples every 0.5 s [MB]: " +
