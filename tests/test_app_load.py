@@ -5,7 +5,8 @@ its memory is read alone from /proc) serves 20 sessions at once; each is a
 Bokeh client session over the loopback websocket, driven from its own thread
 like a browser tab: 50 random control changes from a seeded generator — valid
 values in engineering notation, garbage, negative sizes, infeasible bias,
-unknown and real kind switches, CMRR targets, loop on/off. After every change
+unknown and real kind switches, CMRR targets, loop on/off, design-file uploads
+(near the size limit, over it, not UTF-8, not TOML). After every change
 the client waits until the server has answered that change (the server
 handles one connection's messages in order, so a server-info request sent
 after the change is answered after every patch the change caused).
