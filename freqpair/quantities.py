@@ -59,6 +59,9 @@ def parse_si(value, *, field: str, unit: str = "none") -> float:
         raise ValueError(f"{lead}expected a number or a string like '2 pF'")
     if isinstance(value, str):
         text = value.strip()
+        if "," in text:
+            # a decimal comma ("1,5 k") would be read as a thousands separator (15 k)
+            raise ValueError(f"{lead}use a decimal point, not a comma")
         try:
             if unit == "kelvin":   # quantiphy reads a lone "K" as kilo: "300 K" is 300 kelvin
                 with Quantity.prefs(input_sf=Quantity.get_pref("input_sf").replace("K", "")):

@@ -199,3 +199,10 @@ def test_si_strings_parse_to_the_documented_values():
     assert d.load.capacitance == pytest.approx(2e-12, rel=1e-15)
     assert d.tail.resistance == pytest.approx(1e6, rel=1e-15)
     assert d.bias.tail_current == pytest.approx(1.5e-3, rel=1e-15)
+
+
+def test_decimal_comma_is_refused_not_read_as_a_thousands_separator(builtin_design):
+    # common practice: "1,5 k" typed with a decimal comma means 1.5 kΩ; reading it as
+    # 15 kΩ (thousands separator) would silently give a value 10× off — refuse it
+    with pytest.raises(freqpair.DesignError, match=r"load\.resistance = '1,5 k'.*decimal point"):
+        freqpair.replace_value(builtin_design, "load.resistance", "1,5 k")
