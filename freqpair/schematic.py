@@ -271,8 +271,9 @@ def _draw_load(p: _Pen, design) -> None:
     p.line(X1, Y_OUT, X1 + 45, Y_OUT)
     p.dot(X1 + 45, yc)
     label = (f"mirror load ({dev.type}, β {dev.beta:g})" if dev.is_bipolar
-             else f"mirror load ({dev.type}, W/L {_v(dev.width, 'm')}/{_v(dev.length, 'm')})")
-    p.text(XC, yc - 8, label, "value", "middle", 11)
+             else f"mirror load ({dev.type}, {_v(dev.width, 'm')}/{_v(dev.length, 'm')})")
+    # beside the output device, clear of the devices and the gate bus
+    p.text(X2 + 34, yc + 4, label, "value", "start", 11)
 
 
 def _draw_tail(p: _Pen, design) -> None:
