@@ -123,6 +123,23 @@ def _gain_db(value: complex, reference: float) -> float | None:
     return 20.0 * math.log10(mag)
 
 
+def _low_zeros(resp: StageResponses, names, poles: np.ndarray) -> np.ndarray:
+    """Zeros [rad/s] of the named gains below the slowest natural frequency.
+
+    The crossings' search grid starts 3 decades below its lowest root: a CMRR
+    corner is set by a zero of A_cm,se (the tail's R·C), which may lie far below
+    every pole, and must not depend on where the user's sweep starts.
+    """
+    mags = np.abs(poles)
+    slowest = mags[mags > 0].min() if np.any(mags > 0) else np.inf
+    found = []
+    for name in dict.fromkeys(names):
+        row, kind = resp.output_row(name)
+        z = resp.solver.zeros(resp.excitation(kind), row)
+        found.append(z[(np.abs(z) > 0) & (np.abs(z) < slowest)])
+    return np.concatenate(found) if found else np.zeros(0, dtype=complex)
+
+
 def analyze(design: Design) -> Analysis:
     """Analyse a design: bias, exact network, DC gains, f_3dB, UGF, CMRR and corner.
 
@@ -157,7 +174,10 @@ def _analyze(design: Design) -> Analysis:
     a_total_db = adm_db if primary == "a_total" else None
 
     poles = resp.solver.poles()
-    grid = search_grid(poles, design.sweep.start, design.sweep.stop)
+    acm_se0 = complex(dc.acm_se[0])
+    names = [primary] + (["adm_se", "acm_se"] if abs(acm_se0) > ZERO_GAIN_RATIO * ref else [])
+    grid = search_grid(np.concatenate([poles, _low_zeros(resp, names, poles)]),
+                       design.sweep.start, design.sweep.stop)
     on_grid = resp.at(grid)
 
     def curve(name):
