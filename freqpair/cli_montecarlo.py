@@ -72,21 +72,15 @@ def cmd_montecarlo(args) -> int:
         close()
     obj = res.to_json(yspec)
     if args.csv:
-        import csv
-        import io
-        buf = io.StringIO()
-        w = csv.writer(buf, lineterminator="\n")
+        from .export import csv_text
         cols = ["frequency_hz"] + [f"cmrr_se_db_p{p:g}" for p in res.percentiles]
+        bands = [res.band_cmrr_se_db]
         if res.band_cmrr_db is not None:
             cols += [f"cmrr_db_p{p:g}" for p in res.percentiles]
-        w.writerow(cols)
-        for k, fr in enumerate(res.f_hz):
-            vals = list(res.band_cmrr_se_db[:, k])
-            if res.band_cmrr_db is not None:
-                vals += list(res.band_cmrr_db[:, k])
-            w.writerow([repr(float(fr))] + ["" if not np.isfinite(v) else repr(float(v))
-                                            for v in vals])
-        atomic_write_text(args.csv, buf.getvalue())
+            bands.append(res.band_cmrr_db)
+        rows = ([float(fr)] + [v for band in bands for v in band[:, k]]
+                for k, fr in enumerate(res.f_hz))
+        atomic_write_text(args.csv, csv_text(cols, rows))
     if args.json:
         sys.stdout.write(json.dumps(obj, allow_nan=False) + "\n")
         return 0
