@@ -22,7 +22,7 @@ import freqpair
 from freqpair.design import BUILTIN_EXAMPLE
 from freqpair.montecarlo import MonteCarloSpec, default_grid, run_montecarlo, sampled_design
 
-#: The performance target (issue 6): 10,000 samples × 200 frequencies [s].
+#: The performance target: 10,000 samples × 200 frequencies [s].
 TARGET_S = 2.0
 
 
