@@ -19,14 +19,17 @@ from __future__ import annotations
 
 import argparse
 import os
+import pathlib
+import sys
 import time
 
 import numpy as np
 
-import freqpair
-from freqpair.design import BUILTIN_EXAMPLE
 from freqpair.executors import DaskExecutor
-from freqpair.montecarlo import MonteCarloSpec, default_grid, run_montecarlo
+from freqpair.montecarlo import run_montecarlo
+
+sys.path.insert(0, str(pathlib.Path(__file__).resolve().parent))
+from bench_montecarlo import mismatch_setup  # noqa: E402
 
 
 def _run(design, spec, n, f, executor, chunk):
@@ -48,11 +51,7 @@ def main(argv=None) -> dict:
     from distributed import Client, LocalCluster
     from freqpair.executors import WORKER_ENV
 
-    design = freqpair.design_from_text(BUILTIN_EXAMPLE)
-    spec = MonteCarloSpec.from_dict({"mismatch.load": ("normal", 0.01),
-                                     "mismatch.gm": ("normal", 0.01),
-                                     "tail.capacitance": ("uniform", 0.2)})
-    f = default_grid(design, args.points)
+    design, spec, f = mismatch_setup(args.points)
     print(f"Monte Carlo: {args.samples} samples x {f.size} frequencies, built-in example, "
           f"{os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f}")
     t_local, ref = _run(design, spec, args.samples, f, None, args.chunk)

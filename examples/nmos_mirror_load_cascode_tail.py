@@ -42,8 +42,6 @@ def scenario(design_path=DESIGN) -> dict:
         "simple mirror, no routing": freqpair.replace_value(simple, "tail.extra_capacitance", 0),
     }
     fmt = freqpair.format_si
-    print(f"{'tail':<30} {'R_tail':>10} {'C_tail':>9} {'CMRR DC':>10} {'corner':>11} "
-          f"{'CMRR @ ' + fmt(PROBE_HZ, 'Hz'):>13}")
     out = {}
     for label, d in variants.items():
         r = freqpair.analyze(d)
@@ -53,20 +51,19 @@ def scenario(design_path=DESIGN) -> dict:
                "cmrr_se_db": r.cmrr_se_db, "cmrr_corner_hz": r.cmrr_corner_hz,
                "cmrr_se_at_probe_db": metric_value(r, "cmrr_se_db", PROBE_HZ)}
         out[label] = row
-        print(f"{label:<30} {fmt(row['tail_resistance_ohm'], 'Ω'):>10} "
-              f"{fmt(row['tail_capacitance_f'], 'F'):>9} {row['cmrr_se_db']:>7.2f} dB "
-              f"{fmt(row['cmrr_corner_hz'], 'Hz'):>11} {row['cmrr_se_at_probe_db']:>10.2f} dB")
+    walkthrough.print_table(
+        ("tail", "R_tail", "C_tail", "CMRR DC", "corner", "CMRR @ " + fmt(PROBE_HZ, "Hz")),
+        (-30, 10, 9, 10, 11, 13),
+        [(label, fmt(row["tail_resistance_ohm"], "Ω"), fmt(row["tail_capacitance_f"], "F"),
+          f"{row['cmrr_se_db']:.2f} dB", fmt(row["cmrr_corner_hz"], "Hz"),
+          f"{row['cmrr_se_at_probe_db']:.2f} dB") for label, row in out.items()])
     print(f"(the pair adds {fmt(out['cascode, 0.4 pF routing']['pair_capacitance_f'], 'F')} "
           "of its own at the tail node in every case)")
     return out
 
 
 def main(argv=None) -> int:
-    args = list(sys.argv[1:] if argv is None else argv)
-    walkthrough.run(DESIGN, args[0] if args else None)
-    print()
-    scenario()
-    return 0
+    return walkthrough.main(DESIGN, argv, scenario)
 
 
 if __name__ == "__main__":

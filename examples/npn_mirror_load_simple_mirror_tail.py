@@ -47,8 +47,6 @@ def scenario(design_path=DESIGN, ft_values_hz=PNP_FT_HZ) -> dict:
     """
     design = freqpair.load_design(design_path)
     fmt = freqpair.format_si
-    print(f"{'pnp f_T':>8} {'mirror pole':>12} {'(hand)':>11} {'its zero':>10} "
-          f"{'UGF':>10} {'phase @UGF':>11} {'CMRR corner':>12} {'(hand)':>11}")
     out = {}
     for ft in ft_values_hz:
         r = freqpair.analyze(freqpair.replace_value(design, "load.device.ft", ft))
@@ -64,9 +62,13 @@ def scenario(design_path=DESIGN, ft_values_hz=PNP_FT_HZ) -> dict:
                "tail_resistance_ohm": r.tail.resistance,
                "tail_capacitance_f": r.tail.capacitance}
         out[ft] = row
-        print(f"{fmt(ft, 'Hz'):>8} {fmt(pole, 'Hz'):>12} {fmt(row['mirror_pole_hand_hz'], 'Hz'):>11} "
-              f"{fmt(zero, 'Hz'):>10} {fmt(r.ugf_hz, 'Hz'):>10} {phase:>10.1f}° "
-              f"{fmt(r.cmrr_corner_hz, 'Hz'):>12} {fmt(row['cmrr_corner_hand_hz'], 'Hz'):>11}")
+    walkthrough.print_table(
+        ("pnp f_T", "mirror pole", "(hand)", "its zero", "UGF", "phase @UGF", "CMRR corner",
+         "(hand)"), (8, 12, 11, 10, 10, 11, 12, 11),
+        [(fmt(ft, "Hz"), fmt(row["mirror_pole_hz"], "Hz"), fmt(row["mirror_pole_hand_hz"], "Hz"),
+          fmt(row["mirror_zero_hz"], "Hz"), fmt(row["ugf_hz"], "Hz"),
+          f"{row['phase_at_ugf_deg']:.1f}°", fmt(row["cmrr_corner_hz"], "Hz"),
+          fmt(row["cmrr_corner_hand_hz"], "Hz")) for ft, row in out.items()])
     first = out[ft_values_hz[0]]
     print(f"tail (npn simple mirror), Norton view: {fmt(first['tail_resistance_ohm'], 'Ω')} "
           f"∥ {fmt(first['tail_capacitance_f'], 'F')}")
@@ -74,11 +76,7 @@ def scenario(design_path=DESIGN, ft_values_hz=PNP_FT_HZ) -> dict:
 
 
 def main(argv=None) -> int:
-    args = list(sys.argv[1:] if argv is None else argv)
-    walkthrough.run(DESIGN, args[0] if args else None)
-    print()
-    scenario()
-    return 0
+    return walkthrough.main(DESIGN, argv, scenario)
 
 
 if __name__ == "__main__":

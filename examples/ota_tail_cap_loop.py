@@ -46,21 +46,16 @@ def scenario(design_path=DESIGN, values_f=TAIL_CAPACITANCES_F) -> dict:
            "cmrr_corner_hz": [r["cmrr_corner_hz"] for r in rows],
            "pm_cost_deg": [pm[0] - p for p in pm]}
     fmt = freqpair.format_si
-    print(f"{'C_tail':>8} {'phase margin':>13} {'cost':>8} {'UGF':>10} {'f_3dB':>10} "
-          f"{'CMRR corner':>12}")
-    for i, v in enumerate(values_f):
-        print(f"{fmt(v, 'F') if v else '0 F':>8} {pm[i]:>12.2f}° {out['pm_cost_deg'][i]:>7.2f}° "
-              f"{fmt(out['ugf_hz'][i], 'Hz'):>10} {fmt(out['f3db_hz'][i], 'Hz'):>10} "
-              f"{fmt(out['cmrr_corner_hz'][i], 'Hz'):>12}")
+    walkthrough.print_table(
+        ("C_tail", "phase margin", "cost", "UGF", "f_3dB", "CMRR corner"), (8, 13, 8, 10, 10, 12),
+        [(fmt(v, "F") if v else "0 F", f"{pm[i]:.2f}°", f"{out['pm_cost_deg'][i]:.2f}°",
+          fmt(out["ugf_hz"][i], "Hz"), fmt(out["f3db_hz"][i], "Hz"),
+          fmt(out["cmrr_corner_hz"][i], "Hz")) for i, v in enumerate(values_f)])
     return out
 
 
 def main(argv=None) -> int:
-    args = list(sys.argv[1:] if argv is None else argv)
-    walkthrough.run(DESIGN, args[0] if args else None)
-    print()
-    scenario()
-    return 0
+    return walkthrough.main(DESIGN, argv, scenario)
 
 
 if __name__ == "__main__":

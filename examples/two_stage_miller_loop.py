@@ -56,24 +56,20 @@ def scenario(design_path=DESIGN) -> dict:
     print(f"smallest Miller capacitor for {TARGET_PM_DEG:.0f}° phase margin: "
           f"{fmt(solved.value, 'F')} (reaches {solved.phase_margin_deg:.2f}° at "
           f"{fmt(solved.crossover_hz, 'Hz')})")
-    print(f"{'':<12} {'C_miller':>9} {'PM':>8} {'crossover':>10} {'CL f3dB':>10} "
-          f"{'peaking':>8} {'overshoot':>9} {'settle 1%':>10}")
-    for label, r in rows.items():
-        print(f"{label:<12} {fmt(r['miller_capacitance_f'], 'F'):>9} "
-              f"{r['phase_margin_deg']:>7.2f}° {fmt(r['crossover_hz'], 'Hz'):>10} "
-              f"{fmt(r['closed_loop_f3db_hz'], 'Hz'):>10} {r['peaking_db']:>5.2f} dB "
-              f"{r['overshoot_pct']:>7.2f} % {fmt(r['settling_time_s'], 's'):>10}")
+    walkthrough.print_table(
+        ("", "C_miller", "PM", "crossover", "CL f3dB", "peaking", "overshoot", "settle 1%"),
+        (-12, 9, 8, 10, 10, 8, 9, 10),
+        [(label, fmt(r["miller_capacitance_f"], "F"), f"{r['phase_margin_deg']:.2f}°",
+          fmt(r["crossover_hz"], "Hz"), fmt(r["closed_loop_f3db_hz"], "Hz"),
+          f"{r['peaking_db']:.2f} dB", f"{r['overshoot_pct']:.2f} %",
+          fmt(r["settling_time_s"], "s")) for label, r in rows.items()])
     print(f"closed-loop gain {rows['as_given']['closed_loop_dc_gain']:.5f} V/V; "
           "the step is that of a 1 V input step")
     return {**rows, "solved": solved}
 
 
 def main(argv=None) -> int:
-    args = list(sys.argv[1:] if argv is None else argv)
-    walkthrough.run(DESIGN, args[0] if args else None)
-    print()
-    scenario()
-    return 0
+    return walkthrough.main(DESIGN, argv, scenario)
 
 
 if __name__ == "__main__":

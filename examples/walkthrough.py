@@ -17,23 +17,23 @@ import numpy as np
 import freqpair
 
 
+def table_line(cells, widths) -> str:
+    """One line of a fixed-width table: each cell right-aligned in its width
+    (a negative width: left-aligned), one space between columns."""
+    return " ".join(f"{c:<{-w}}" if w < 0 else f"{c:>{w}}" for c, w in zip(cells, widths))
+
+
+def print_table(headers, widths, rows) -> None:
+    """Print a header line and one line per row (cells already formatted as text)."""
+    print(table_line(headers, widths))
+    for row in rows:
+        print(table_line(row, widths))
+
+
 def transfer_function(result):
     """The main differential gain as a python-control TransferFunction (s in rad/s)."""
-    import control
-    try:   # the dedicated module, where this build has it
-        from freqpair.poles import response_zpk
-        return response_zpk(result, result.primary).transfer_function()
-    except ImportError:
-        pass
-    resp = result.responses
-    row, kind = resp.output_row(result.primary)
-    zeros = resp.solver.zeros(resp.excitation(kind), row)
-    poles = result.natural_frequencies_rad_s
-    h0 = complex(result.dc.get(result.primary)[0])
-    # gain so that H(0) matches the exact DC value: H(0) = k·Π(−z)/Π(−p)
-    k = (h0 * np.prod(-poles) / np.prod(-zeros)).real
-    # roots come in conjugate pairs: the polynomials are real up to rounding
-    return control.TransferFunction(k * np.poly(zeros).real, np.poly(poles).real)
+    from freqpair.poles import response_zpk
+    return response_zpk(result, result.primary).transfer_function()
 
 
 def run(design_path, out_dir=None) -> dict:
@@ -72,7 +72,9 @@ def run(design_path, out_dir=None) -> dict:
             "json": result.to_json()}
 
 
-def main(design_path=None, argv=None) -> int:
+def main(design_path=None, argv=None, scenario=None) -> int:
+    """Walk through ``design_path`` (or the first argument), then run ``scenario()``
+    if given; the next argument is the output folder."""
     args = list(sys.argv[1:] if argv is None else argv)
     if design_path is None:
         if not args:
@@ -80,6 +82,9 @@ def main(design_path=None, argv=None) -> int:
             return 2
         design_path = args.pop(0)
     run(design_path, args[0] if args else None)
+    if scenario is not None:
+        print()
+        scenario()
     return 0
 
 

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import sys
 
@@ -20,6 +19,7 @@ def _load(path):
 
 def cmd_analyze(args) -> int:
     from .analysis import analyze
+    from .cli_common import print_json
     from .summary import format_summary
     design = _load(args.design)
     result = analyze(design)
@@ -27,17 +27,22 @@ def cmd_analyze(args) -> int:
         from .export import write_curves_csv
         write_curves_csv(result, args.csv)
     if args.json:
-        sys.stdout.write(json.dumps(result.to_json(), allow_nan=False) + "\n")
+        print_json(result.to_json())
     else:
         print(format_summary(result))
     return 0
+
+
+def add_optional_design(p) -> None:
+    """The positional DESIGN of a subcommand that falls back to the built-in example."""
+    p.add_argument("design", nargs="?", help="design file (TOML); omit for the built-in example")
 
 
 def register_analyze(sub) -> None:
     p = sub.add_parser("analyze", help="analyse a design file (or the built-in example)",
                        description="Analyse a design: operating point, gains, f_3dB, UGF, "
                                    "CMRR and its corner. With no DESIGN, the built-in example.")
-    p.add_argument("design", nargs="?", help="design file (TOML); omit for the built-in example")
+    add_optional_design(p)
     p.add_argument("--example", action="store_true", help="use the built-in example design")
     p.add_argument("--json", action="store_true", help="print one JSON object (SI units)")
     p.add_argument("--csv", metavar="FILE", help="also write the curves to FILE as CSV")

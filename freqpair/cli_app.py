@@ -14,12 +14,11 @@ __all__ = ["register", "cmd_app", "make_server", "limit_blas_threads"]
 
 HOST = "127.0.0.1"
 
-
-
 #: Largest websocket message the server accepts [bytes]: room for a 256 kB file
 #: upload (base64 grows it by 4/3) and the document messages, refusing anything
 #: much larger before it is read (the default is 20 MB).
 WEBSOCKET_MAX_BYTES = 2 * 1024 * 1024
+
 
 def limit_blas_threads() -> bool:
     """Run BLAS single-threaded in this process (the app's matrices are small:
@@ -96,7 +95,8 @@ def register(sub) -> None:
     p = sub.add_parser("app", help="interactive explorer in the browser",
                        description="Serve the interactive explorer on 127.0.0.1 and open it "
                                    "in the browser. With no DESIGN, the built-in example.")
-    p.add_argument("design", nargs="?", help="design file (TOML); omit for the built-in example")
+    from .cli import add_optional_design
+    add_optional_design(p)
     p.add_argument("--port", type=int, default=5006, help="TCP port (default 5006)")
     p.add_argument("--no-browser", action="store_true", help="do not open a browser")
     p.set_defaults(func=cmd_app)

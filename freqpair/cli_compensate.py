@@ -1,7 +1,6 @@
 """``freqpair compensate DESIGN --target-pm 60 [--solve miller|nulling|feedback] [--range a b]``."""
 from __future__ import annotations
 
-import json
 import sys
 
 __all__ = ["register"]
@@ -15,6 +14,7 @@ _WHAT = {"miller": "smallest Miller capacitor", "nulling": "smallest nulling res
 def cmd_compensate(args) -> int:
     from . import compensation
     from .cli import _load
+    from .cli_common import print_json
     from .errors import DesignError
     from .quantities import format_si, parse_si
     design = _load(args.design)
@@ -26,7 +26,7 @@ def cmd_compensate(args) -> int:
         raise DesignError(f"--target-pm = {args.target_pm!r}: must be between 0 and 180 degrees")
     result = getattr(compensation, _SOLVERS[args.solve])(design, args.target_pm, bounds)
     if args.json:
-        sys.stdout.write(json.dumps(result.to_json(), allow_nan=False) + "\n")
+        print_json(result.to_json())
         return 0
     unit = compensation._UNITS[result.key]
     value = format_si(result.value, unit) if unit else f"{result.value:.4g}"

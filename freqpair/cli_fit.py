@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 
 __all__ = ["register", "cmd_fit", "format_fit"]
@@ -83,6 +82,7 @@ def _write_plot(path, design, measurement) -> None:
 
 def cmd_fit(args) -> int:
     from .cli import _load
+    from .cli_common import print_json
     from .design import replace_value, save_design
     from .fit import fit_design
     from .measured import read_measurement
@@ -111,7 +111,7 @@ def cmd_fit(args) -> int:
         out = result.to_json()
         out["measured"] = str(args.measured)
         out["output"] = str(args.output) if args.output else None
-        sys.stdout.write(json.dumps(out, allow_nan=False) + "\n")
+        print_json(out)
     else:
         print(format_fit(result, meas))
         if args.output:

@@ -10,12 +10,10 @@ to their nominal value.
 """
 from __future__ import annotations
 
-import json
-import sys
-
 import numpy as np
 
-from .cli_sweep import CliError, _num, _progress, _with_executor, add_scheduler_option
+from .cli_common import CliError, _num, add_scheduler_option, key_spec, print_json, \
+    run_with_progress
 
 __all__ = ["register", "parse_spread"]
 
@@ -30,11 +28,12 @@ def _fraction(text: str, option: str) -> float:
 def parse_spread(text: str):
     """``KEY=normal:σ`` or ``KEY=uniform:w`` → ``(key, Spread)``."""
     from .montecarlo import Spread
-    if "=" not in text or ":" not in text.split("=", 1)[1]:
-        raise CliError(f"--spread {text!r}: expected KEY=normal:SIGMA or KEY=uniform:HALFWIDTH")
-    key, spec = text.split("=", 1)
+    expected = "KEY=normal:SIGMA or KEY=uniform:HALFWIDTH"
+    key, spec = key_spec(text, "--spread", expected)
+    if ":" not in spec:
+        raise CliError(f"--spread {text!r}: expected {expected}")
     kind, width = spec.split(":", 1)
-    return key.strip(), Spread(kind.strip(), _fraction(width, f"--spread {key.strip()}"))
+    return key, Spread(kind.strip(), _fraction(width, f"--spread {key}"))
 
 
 def _spec_arg(text: str):
@@ -62,33 +61,24 @@ def cmd_montecarlo(args) -> int:
     if yspec is not None:
         f = np.unique(np.append(f, yspec[1]))
     q = tuple(_num(x, "--percentiles") for x in args.percentiles.split(","))
-    show = args.progress if args.progress is not None else sys.stderr.isatty()
-    cb, close = _progress(args.samples, "montecarlo") if show else (None, lambda: None)
-    try:
-        res = _with_executor(args, lambda ex: run_montecarlo(
-            design, spec, args.samples, args.seed, f_hz=f, chunk=args.chunk, percentiles=q,
-            progress=cb, executor=ex))
-    finally:
-        close()
+    res = run_with_progress(args, args.samples, "montecarlo",
+                            lambda ex, cb: run_montecarlo(
+                                design, spec, args.samples, args.seed, f_hz=f, chunk=args.chunk,
+                                percentiles=q, progress=cb, executor=ex),
+                            show=args.progress)
     obj = res.to_json(yspec)
     if args.csv:
-        import csv
-        import io
-        buf = io.StringIO()
-        w = csv.writer(buf, lineterminator="\n")
+        from .export import csv_text
         cols = ["frequency_hz"] + [f"cmrr_se_db_p{p:g}" for p in res.percentiles]
+        bands = [res.band_cmrr_se_db]
         if res.band_cmrr_db is not None:
             cols += [f"cmrr_db_p{p:g}" for p in res.percentiles]
-        w.writerow(cols)
-        for k, fr in enumerate(res.f_hz):
-            vals = list(res.band_cmrr_se_db[:, k])
-            if res.band_cmrr_db is not None:
-                vals += list(res.band_cmrr_db[:, k])
-            w.writerow([repr(float(fr))] + ["" if not np.isfinite(v) else repr(float(v))
-                                            for v in vals])
-        atomic_write_text(args.csv, buf.getvalue())
+            bands.append(res.band_cmrr_db)
+        rows = ([float(fr)] + [v for band in bands for v in band[:, k]]
+                for k, fr in enumerate(res.f_hz))
+        atomic_write_text(args.csv, csv_text(cols, rows))
     if args.json:
-        sys.stdout.write(json.dumps(obj, allow_nan=False) + "\n")
+        print_json(obj)
         return 0
     print(f"Monte Carlo: {res.n} samples, seed {res.seed}; spreads: "
           + ", ".join(f"{k} {s.kind} {s.width:g}" for k, s in spec.spreads))

@@ -10,33 +10,19 @@ Values take SI prefixes and units ("2p", "2 pF", "1 mA").
 """
 from __future__ import annotations
 
-import json
+import math
 import sys
 
-from .errors import FreqpairError
-from .quantities import parse_si
+from .cli_common import (CliError, _num, add_scheduler_option, key_spec, print_json,
+                         run_with_progress)
 
 __all__ = ["register", "parse_axis", "register_target"]
-
-
-class CliError(FreqpairError, ValueError):
-    """A bad command-line value (names the option and the value)."""
-
-
-def _num(text: str, option: str) -> float:
-    try:
-        return parse_si(text.strip(), field=option)
-    except FreqpairError as exc:
-        raise CliError(f"{option} = {text!r}: {exc}") from None
 
 
 def parse_axis(text: str):
     """``KEY=START:STOP:N[:log]`` or ``KEY=V1,V2,…`` → :class:`~freqpair.sweep.SweepAxis`."""
     from .sweep import SweepAxis
-    if "=" not in text:
-        raise CliError(f"--vary {text!r}: expected KEY=START:STOP:N[:log] or KEY=V1,V2,...")
-    key, spec = text.split("=", 1)
-    key = key.strip()
+    key, spec = key_spec(text, "--vary", "KEY=START:STOP:N[:log] or KEY=V1,V2,...")
     if ":" in spec:
         parts = spec.split(":")
         if len(parts) not in (3, 4) or (len(parts) == 4 and parts[3] not in ("log", "lin")):
@@ -52,40 +38,6 @@ def parse_axis(text: str):
     return SweepAxis(key, tuple(_num(v, f"--vary {key}") for v in spec.split(",")))
 
 
-def _progress(total: int, desc: str):
-    """A tqdm bar on a terminal (stderr), nothing otherwise; returns (callback, close)."""
-    if not sys.stderr.isatty():
-        return None, (lambda: None)
-    from tqdm import tqdm
-    bar = tqdm(total=total, desc=desc, file=sys.stderr, leave=False)
-    return bar.update, bar.close
-
-
-def executor_from(args):
-    """The executor named by ``--scheduler`` (None: this process)."""
-    address = getattr(args, "scheduler", None)
-    if not address:
-        return None
-    from .executors import DaskExecutor
-    return DaskExecutor(address)
-
-
-def add_scheduler_option(p) -> None:
-    """``--scheduler tcp://HOST:PORT``: run the chunks on a Dask cluster."""
-    p.add_argument("--scheduler", metavar="ADDRESS",
-                   help="run on a Dask cluster at this scheduler address (tcp://host:8786); "
-                        'needs pip install "freqpair[cluster]"')
-
-
-def _with_executor(args, run):
-    ex = executor_from(args)
-    try:
-        return run(ex)
-    finally:
-        if ex is not None:
-            ex.close()
-
-
 def cmd_sweep(args) -> int:
     from .cli import _load
     from .design import atomic_write_text
@@ -95,16 +47,10 @@ def cmd_sweep(args) -> int:
     metrics = tuple(m.strip() for m in args.metrics.split(",")) if args.metrics \
         else DEFAULT_METRICS
     at_hz = _num(args.at, "--at") if args.at else None
-    total = 1
-    for a in axes:
-        total *= len(a.values)
-    cb, close = _progress(total, "sweep")
-    try:
-        result = _with_executor(args, lambda ex: sweep(
-            design, axes, metrics=metrics, curves=args.curves, at_hz=at_hz, progress=cb,
-            executor=ex))
-    finally:
-        close()
+    result = run_with_progress(args, math.prod(len(a.values) for a in axes), "sweep",
+                               lambda ex, cb: sweep(design, axes, metrics=metrics,
+                                                    curves=args.curves, at_hz=at_hz,
+                                                    progress=cb, executor=ex))
     fmt = args.format or ("json" if args.out and args.out.endswith(".json") else "csv")
     if args.curves and fmt == "csv":
         raise CliError("--curves: curves need --format json (CSV holds the metric table)")
@@ -145,9 +91,9 @@ def cmd_target(args) -> int:
     from .quantities import format_si
     from .targets import solve_target
     design = _load(args.design)
-    if "=" not in args.vary or args.vary.count(":") != 1:
+    key, rng = key_spec(args.vary, "--vary", "KEY=A:B (the search range)")
+    if rng.count(":") != 1:
         raise CliError(f"--vary {args.vary!r}: expected KEY=A:B (the search range)")
-    key, rng = args.vary.split("=", 1)
     lo, hi = (_num(v, f"--vary {key}") for v in rng.split(":"))
     if (args.min is None) == (args.max is None):
         raise CliError("give exactly one of --min BOUND (metric ≥ bound) or --max BOUND")
@@ -155,11 +101,11 @@ def cmd_target(args) -> int:
         ("max", _num(args.max, "--max"))
     at_hz = _num(args.at, "--at") if args.at else None
     if args.over:
-        return _target_over(args, design, key.strip(), kind, bound, (lo, hi), at_hz)
-    res = solve_target(design, key.strip(), args.metric, bound, kind, (lo, hi), at_hz=at_hz,
+        return _target_over(args, design, key, kind, bound, (lo, hi), at_hz)
+    res = solve_target(design, key, args.metric, bound, kind, (lo, hi), at_hz=at_hz,
                        want=args.want)
     if args.json:
-        sys.stdout.write(json.dumps(res.to_json(), allow_nan=False) + "\n")
+        print_json(res.to_json())
     else:
         op = "≥" if kind == "min" else "≤"
         where = f" at {format_si(at_hz, 'Hz')}" if at_hz else ""
@@ -175,16 +121,10 @@ def _target_over(args, design, key, kind, bound, bounds, at_hz) -> int:
     """``freqpair target … --over AXIS``: the target at every grid point (CSV or JSON)."""
     from .target_grid import solve_target_grid
     axes = [parse_axis(t) for t in args.over]
-    total = 1
-    for a in axes:
-        total *= len(a.values)
-    cb, close = _progress(total, "target")
-    try:
-        res = _with_executor(args, lambda ex: solve_target_grid(
-            design, axes, key, args.metric, bound, kind, bounds, at_hz, args.want,
-            progress=cb, executor=ex))
-    finally:
-        close()
+    res = run_with_progress(args, math.prod(len(a.values) for a in axes), "target",
+                            lambda ex, cb: solve_target_grid(
+                                design, axes, key, args.metric, bound, kind, bounds, at_hz,
+                                args.want, progress=cb, executor=ex))
     sys.stdout.write(res.to_json_text() + "\n" if args.json else res.to_csv())
     return 0
 

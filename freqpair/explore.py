@@ -10,8 +10,6 @@ values of a design (:func:`editable_values`) and how to switch a section's kind
 """
 from __future__ import annotations
 
-import csv
-import io
 import math
 from dataclasses import dataclass
 
@@ -550,11 +548,6 @@ def _measured_rows(measured, note) -> list[tuple[str, str]]:
 
 def curves_csv(curves: dict) -> str:
     """CSV text of the ``curves`` columns; NaN (no value) is an empty cell."""
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
+    from .export import csv_text
     cols = [c for c in CURVE_COLUMNS if c in curves]
-    w.writerow(cols)
-    arrays = [np.asarray(curves[c], dtype=float) for c in cols]
-    for row in zip(*arrays):
-        w.writerow(["" if not math.isfinite(v) else repr(float(v)) for v in row])
-    return buf.getvalue()
+    return csv_text(cols, zip(*(np.asarray(curves[c], dtype=float) for c in cols)))

@@ -1,15 +1,36 @@
-"""CSV export of the curves: frequency, magnitude [dB] and phase [deg] of every gain, and CMRR."""
+"""CSV export: plain tables (:func:`csv_text`) and the curves (frequency, magnitude [dB]
+and phase [deg] of every gain, and CMRR)."""
 from __future__ import annotations
 
 import csv
 import io
+import math
 
 import numpy as np
 
 from .design import atomic_write_text
 from .metrics import db
 
-__all__ = ["curves_table", "write_curves_csv", "zero_to_rounding"]
+__all__ = ["csv_text", "curves_table", "write_curves_csv", "zero_to_rounding"]
+
+
+def _cell(v):
+    if v is None:
+        return ""
+    if isinstance(v, (float, np.floating)):
+        return repr(float(v)) if math.isfinite(v) else ""
+    return v
+
+
+def csv_text(header, rows) -> str:
+    """CSV text: ``header``, then one line per row; floats written exactly
+    (``repr``), None and non-finite values as empty cells."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(list(header))
+    for row in rows:
+        w.writerow([_cell(v) for v in row])
+    return buf.getvalue()
 
 
 def zero_to_rounding(result, values) -> np.ndarray:
@@ -46,9 +67,4 @@ def write_curves_csv(result, path, grid=None) -> None:
     """Write :func:`curves_table` to ``path`` atomically. Infinite dB values
     (a gain exactly zero) are written as empty cells."""
     cols = curves_table(result, grid)
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(list(cols))
-    for row in zip(*cols.values()):
-        w.writerow(["" if not np.isfinite(v) else repr(float(v)) for v in row])
-    atomic_write_text(path, buf.getvalue())
+    atomic_write_text(path, csv_text(cols, zip(*cols.values())))

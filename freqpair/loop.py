@@ -39,7 +39,7 @@ __all__ = ["LoopResult", "LoopCurves", "LoopModel", "loop_analysis", "loop_curve
 
 #: Relative distance below which a pole and a zero cancel (unexcited/unseen modes).
 CANCEL_RTOL = 1e-7
-#: JSON keys added by a design with [feedback] (DESIGN.md §4 and issue 5).
+#: JSON keys added by a design with [feedback] (DESIGN.md §4).
 LOOP_JSON_KEYS = ("phase_margin_deg", "gain_margin_db", "crossover_hz", "phase_crossover_hz",
                   "dc_loop_gain_db", "closed_loop_f3db_hz", "peaking_db", "closed_loop_stable",
                   "overshoot_pct", "settling_time_s")

@@ -58,26 +58,28 @@ class _Pen:
                           f'text-anchor="{anchor}">{escape(s)}</text>')
 
     # ----------------------------------------------------------- parts
-    def resistor_v(self, x, y1, y2):
-        """Vertical resistor between y1 and y2 (leads, then a zig-zag body)."""
-        body = (y2 - y1) * 0.6
-        a = y1 + (y2 - y1 - body) / 2
+    def _resistor(self, u1, u2, v, amplitude, vertical):
+        """Resistor from ``u1`` to ``u2`` along one axis at ``v`` on the other
+        (leads, then a six-segment zig-zag body of the given amplitude)."""
+        body = (u2 - u1) * 0.6
+        a = u1 + (u2 - u1 - body) / 2
         step = body / 6
-        d = f"M{x:g},{y1:g} L{x:g},{a:g}"
-        for i in range(6):
-            d += f" L{x + (7 if i % 2 == 0 else -7):g},{a + step * (i + 0.5):g}"
-        d += f" L{x:g},{a + body:g} L{x:g},{y2:g}"
-        self.path(d, self.c["device"])
+        pts = [(u1, v), (a, v)]
+        pts += [(a + step * (i + 0.5), v + (amplitude if i % 2 == 0 else -amplitude))
+                for i in range(6)]
+        pts += [(a + body, v), (u2, v)]
+        if vertical:
+            pts = [(y, x) for x, y in pts]
+        self.path(" ".join(("M" if k == 0 else "L") + f"{x:g},{y:g}"
+                           for k, (x, y) in enumerate(pts)), self.c["device"])
+
+    def resistor_v(self, x, y1, y2):
+        """Vertical resistor between y1 and y2."""
+        self._resistor(y1, y2, x, 7, vertical=True)
 
     def resistor_h(self, x1, x2, y):
-        body = (x2 - x1) * 0.6
-        a = x1 + (x2 - x1 - body) / 2
-        step = body / 6
-        d = f"M{x1:g},{y:g} L{a:g},{y:g}"
-        for i in range(6):
-            d += f" L{a + step * (i + 0.5):g},{y + (6 if i % 2 == 0 else -6):g}"
-        d += f" L{a + body:g},{y:g} L{x2:g},{y:g}"
-        self.path(d, self.c["device"])
+        """Horizontal resistor between x1 and x2."""
+        self._resistor(x1, x2, y, 6, vertical=False)
 
     def capacitor_v(self, x, y1, y2):
         mid = (y1 + y2) / 2

@@ -10,10 +10,6 @@ bar with it).
 """
 from __future__ import annotations
 
-import csv
-import io
-import itertools
-import json
 import math
 from dataclasses import dataclass, field
 from typing import Callable
@@ -21,7 +17,8 @@ from typing import Callable
 import numpy as np
 
 from .analysis import analyze
-from .design import get_value, replace_value
+from .design import get_value
+from .design_grid import GridTable, design_at, grid_rows, run_grid
 from .errors import FreqpairError
 from .metrics import db
 from .targets import LOOP_METRICS, METRICS, TargetResult, metric_value, solve_target
@@ -76,7 +73,7 @@ class SweepAxis:
 
 
 @dataclass(frozen=True)
-class SweepResult:
+class SweepResult(GridTable):
     """Metrics over a sweep grid.
 
     Attributes
@@ -104,37 +101,13 @@ class SweepResult:
     f_hz: np.ndarray | None = field(default=None, repr=False)
     curves: dict | None = field(default=None, repr=False)
 
-    @property
-    def shape(self) -> tuple:
-        return tuple(len(a.values) for a in self.axes)
-
     def to_rows(self) -> list[dict]:
         """One dict per grid point: swept keys, metrics (None if undefined), error."""
-        rows = []
-        for idx in itertools.product(*(range(n) for n in self.shape)):
-            row = {a.key: a.values[i] for a, i in zip(self.axes, idx)}
-            for m in self.metrics:
-                v = float(self.table[m][idx])
-                row[m] = v if math.isfinite(v) else None
-            row["error"] = self.errors.get(idx)
-            rows.append(row)
-        return rows
-
-    def to_csv(self) -> str:
-        """CSV text: a header, one line per point; empty cells for undefined values."""
-        buf = io.StringIO()
-        rows = self.to_rows()
-        w = csv.writer(buf, lineterminator="\n")
-        cols = list(rows[0])
-        w.writerow(cols)
-        for r in rows:
-            w.writerow(["" if r[c] is None else (repr(r[c]) if isinstance(r[c], float) else r[c])
-                        for c in cols])
-        return buf.getvalue()
+        return grid_rows(self.axes, [(m, self.table[m]) for m in self.metrics], self.errors)
 
     def to_json(self) -> dict:
         """JSON-ready object: axes, metrics, rows (and curves when computed)."""
-        out = {"axes": [{"key": a.key, "values": list(a.values)} for a in self.axes],
+        out = {"axes": self._axes_json(),
                "metrics": list(self.metrics), "at_hz": self.at_hz, "rows": self.to_rows()}
         if self.curves is not None:
             out["f_hz"] = [float(f) for f in self.f_hz]
@@ -145,9 +118,6 @@ class SweepResult:
                 out["curves"][name] = [[v if math.isfinite(v) else None for v in row]
                                        for row in arr]
         return out
-
-    def to_json_text(self) -> str:
-        return json.dumps(self.to_json(), allow_nan=False)
 
 
 def sweep(design, axes, metrics=DEFAULT_METRICS, curves: bool = False, f_hz=None,
@@ -207,27 +177,18 @@ def sweep(design, axes, metrics=DEFAULT_METRICS, curves: bool = False, f_hz=None
         store = {"adm_db": np.full(shape + (grid.size,), np.nan),
                  "cmrr_se_db": np.full(shape + (grid.size,), np.nan),
                  "cmrr_db": np.full(shape + (grid.size,), np.nan)}
-    from .executors import chunk_ranges, get_executor, run_chunks
-    points = list(itertools.product(*(range(n) for n in shape)))
-    ex = get_executor(executor)
-    try:
-        ranges = chunk_ranges(len(points), ex.chunk_size(len(points), chunk))
-        args = [(design, axes, tuple(metrics), at_hz, grid, points[a:b]) for a, b in ranges]
-        parts = run_chunks(ex, sweep_points, args, [b - a for a, b in ranges], progress)
-    finally:
-        if ex is not executor:
-            ex.close()
-    for part in parts:
-        for idx, vals, crv, err in part:
-            if err is not None:
-                errors[idx] = err
-                continue
-            for m, v in zip(metrics, vals):
-                table[m][idx] = np.nan if v is None else v
-            if crv is not None:
-                for name, arr in zip(("adm_db", "cmrr_se_db", "cmrr_db"), crv):
-                    if arr is not None:
-                        store[name][idx] = arr
+    entries = run_grid(sweep_points, (design, axes, tuple(metrics), at_hz, grid), axes, chunk,
+                       executor, progress)
+    for idx, vals, crv, err in entries:
+        if err is not None:
+            errors[idx] = err
+            continue
+        for m, v in zip(metrics, vals):
+            table[m][idx] = np.nan if v is None else v
+        if crv is not None:
+            for name, arr in zip(("adm_db", "cmrr_se_db", "cmrr_db"), crv):
+                if arr is not None:
+                    store[name][idx] = arr
     table = {m: np.where(np.isfinite(v), v, np.nan) for m, v in table.items()}
     if store is not None and np.all(np.isnan(store["cmrr_db"])):
         del store["cmrr_db"]
@@ -248,10 +209,7 @@ def sweep_points(design, axes, metrics, at_hz, grid, points) -> list:
     out = []
     for idx in points:
         try:
-            point = design
-            for a, i in zip(axes, idx):
-                point = replace_value(point, a.key, a.values[i])
-            res = analyze(point)
+            res = analyze(design_at(design, axes, idx))
             vals = tuple(metric_value(res, m, at_hz) for m in metrics)
             crv = None
             if grid is not None:

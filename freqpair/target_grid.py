@@ -8,17 +8,14 @@ Dask cluster, with identical results.
 """
 from __future__ import annotations
 
-import csv
-import io
-import itertools
-import json
 import math
 from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
 
-from .design import get_value, replace_value
+from .design import get_value
+from .design_grid import GridTable, design_at, grid_rows, run_grid
 from .errors import FreqpairError
 from .targets import TargetError, solve_target
 
@@ -26,7 +23,7 @@ __all__ = ["TargetGridResult", "solve_target_grid", "target_points"]
 
 
 @dataclass(frozen=True)
-class TargetGridResult:
+class TargetGridResult(GridTable):
     """Solved values over a grid.
 
     Attributes
@@ -57,41 +54,15 @@ class TargetGridResult:
     metric_value: np.ndarray
     errors: dict
 
-    @property
-    def shape(self) -> tuple:
-        return tuple(len(a.values) for a in self.axes)
-
     def to_rows(self) -> list[dict]:
         """One dict per grid point: grid keys, solved value, metric value, error."""
-        rows = []
-        for idx in itertools.product(*(range(n) for n in self.shape)):
-            row = {a.key: a.values[i] for a, i in zip(self.axes, idx)}
-            for name, arr in ((self.key, self.value), (self.metric, self.metric_value)):
-                v = float(arr[idx])
-                row[name] = v if math.isfinite(v) else None
-            row["error"] = self.errors.get(idx)
-            rows.append(row)
-        return rows
-
-    def to_csv(self) -> str:
-        """CSV text: a header, one line per grid point; empty cells where undefined."""
-        buf = io.StringIO()
-        rows = self.to_rows()
-        w = csv.writer(buf, lineterminator="\n")
-        cols = list(rows[0])
-        w.writerow(cols)
-        for r in rows:
-            w.writerow(["" if r[c] is None else (repr(r[c]) if isinstance(r[c], float) else r[c])
-                        for c in cols])
-        return buf.getvalue()
+        return grid_rows(self.axes, ((self.key, self.value), (self.metric, self.metric_value)),
+                         self.errors)
 
     def to_json(self) -> dict:
-        return {"axes": [{"key": a.key, "values": list(a.values)} for a in self.axes],
+        return {"axes": self._axes_json(),
                 "key": self.key, "metric": self.metric, "bound": self.bound,
                 "kind": self.kind, "at_hz": self.at_hz, "rows": self.to_rows()}
-
-    def to_json_text(self) -> str:
-        return json.dumps(self.to_json(), allow_nan=False)
 
 
 def target_points(design, axes, key, metric, bound, kind, bounds, at_hz, want,
@@ -107,10 +78,7 @@ def target_points(design, axes, key, metric, bound, kind, bounds, at_hz, want,
     out = []
     for idx in points:
         try:
-            point = design
-            for a, i in zip(axes, idx):
-                point = replace_value(point, a.key, a.values[i])
-            r = solve_target(point, key, metric, bound, kind, bounds, at_hz, want)
+            r = solve_target(design_at(design, axes, idx), key, metric, bound, kind, bounds, at_hz, want)
             out.append((idx, r.value, r.metric_value, None))
         except FreqpairError as exc:
             out.append((idx, None, None, str(exc)))
@@ -157,32 +125,22 @@ def solve_target_grid(design, axes, key: str, metric: str, bound: float, kind: s
     if kind not in ("min", "max") or want not in (None, "largest", "smallest"):
         raise TargetError(f"kind = {kind!r}, want = {want!r}: kind 'min'/'max', "
                           "want 'largest'/'smallest'")
-    from .executors import chunk_ranges, get_executor, run_chunks
     from .targets import METRICS
     if metric not in METRICS:
         raise TargetError(f"metric = {metric!r}: unknown (choose from {', '.join(METRICS)})")
     a, b = bounds
     if a is None or b is None or not (math.isfinite(a) and math.isfinite(b) and b > a):
         raise TargetError(f"bounds = {bounds!r}: need a finite range [a, b] with b > a")
+    entries = run_grid(target_points, (design, axes, key, metric, bound, kind, bounds, at_hz,
+                                       want), axes, chunk, executor, progress)
     shape = tuple(len(ax.values) for ax in axes)
-    points = list(itertools.product(*(range(n) for n in shape)))
-    ex = get_executor(executor)
-    try:
-        ranges = chunk_ranges(len(points), ex.chunk_size(len(points), chunk))
-        args = [(design, axes, key, metric, bound, kind, bounds, at_hz, want, points[s:e])
-                for s, e in ranges]
-        parts = run_chunks(ex, target_points, args, [e - s for s, e in ranges], progress)
-    finally:
-        if ex is not executor:
-            ex.close()
     value = np.full(shape, np.nan)
     mval = np.full(shape, np.nan)
     errors = {}
-    for part in parts:
-        for idx, v, m, err in part:
-            if err is not None:
-                errors[idx] = err
-            else:
-                value[idx] = v
-                mval[idx] = np.nan if m is None else m
+    for idx, v, m, err in entries:
+        if err is not None:
+            errors[idx] = err
+        else:
+            value[idx] = v
+            mval[idx] = np.nan if m is None else m
     return TargetGridResult(axes, key, metric, float(bound), kind, at_hz, value, mval, errors)

@@ -2,13 +2,15 @@
 
 ``make_driver(tmpdir)`` returns a headless Chrome driver with a fresh profile
 under ``tmpdir``, or calls ``pytest.skip`` saying why (no Chromium, no driver,
-no selenium). ``free_port()`` picks a free loopback port; ``wait_for_bokeh``
-waits until the page's Bokeh document exists.
+no selenium). ``free_port()`` picks a free loopback port; ``stop_server(proc)``
+ends a server subprocess; ``wait_for_bokeh`` waits until the page's Bokeh
+document exists.
 """
 from __future__ import annotations
 
 import shutil
 import socket
+import subprocess
 import time
 from pathlib import Path
 
@@ -49,6 +51,19 @@ def free_port() -> int:
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         return s.getsockname()[1]
+
+
+def stop_server(proc: subprocess.Popen, timeout: float = 10.0) -> None:
+    """Terminate a server subprocess (kill it after ``timeout`` s) and close its pipes."""
+    proc.terminate()
+    try:
+        proc.wait(timeout=timeout)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+        proc.wait()
+    for pipe in (proc.stdout, proc.stderr):
+        if pipe is not None:
+            pipe.close()
 
 
 def wait_until(predicate, timeout: float = 30.0, interval: float = 0.1):

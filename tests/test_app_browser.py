@@ -13,7 +13,8 @@ import freqpair
 from freqpair.design import BUILTIN_EXAMPLE
 from freqpair.measured import read_measurement
 
-from browser_util import console_errors, free_port, make_driver, wait_for_bokeh, wait_until
+from browser_util import (console_errors, free_port, make_driver, stop_server,
+                          wait_for_bokeh, wait_until)
 
 ROOT = Path(__file__).resolve().parent.parent
 ARTIFACTS = ROOT / "test-artifacts"
@@ -34,14 +35,7 @@ def server():
         assert f"127.0.0.1:{port}" in line, proc.stderr.read() if proc.poll() else line
         yield port, proc
     finally:
-        proc.terminate()
-        try:
-            proc.wait(timeout=10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
-        proc.stdout.close()
-        proc.stderr.close()
+        stop_server(proc)
 
 
 @pytest.mark.browser
@@ -110,10 +104,7 @@ def test_measurement_uploaded_in_the_page_shows_markers_and_residual(tmp_path):
     finally:
         if driver is not None:
             driver.quit()
-        proc.terminate()
-        proc.wait(timeout=10)
-        proc.stdout.close()
-        proc.stderr.close()
+        stop_server(proc)
     # oracle: the CSV file's data rows (freqpair.measured reads them; counted by the reader)
     assert n == len(read_measurement(MEASURED, "cmrr"))
     assert errors == []

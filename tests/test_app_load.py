@@ -23,7 +23,6 @@ from __future__ import annotations
 import base64
 import dataclasses
 import os
-import socket
 import subprocess
 import sys
 import threading
@@ -39,6 +38,8 @@ from freqpair.design import BUILTIN_EXAMPLE, design_from_text, design_to_dict, p
 from freqpair.design import replace_value
 from freqpair.errors import FreqpairError
 from freqpair.explore import KIND_CHOICES, editable_values, explore, explore_grid, switch_kind
+
+from browser_util import free_port, stop_server
 
 ROOT = Path(__file__).resolve().parent.parent
 ARTIFACTS = ROOT / "test-artifacts"
@@ -66,12 +67,6 @@ NON_NEGATIVE = ("bias.tail_current", "bias.temperature", "pair.", "load.", "tail
 
 
 # ------------------------------------------------------------------ server
-def _free_port() -> int:
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
 def _rss_mb(pid: int, field: str = "VmRSS") -> float:
     for line in Path(f"/proc/{pid}/status").read_text().splitlines():
         if line.startswith(field + ":"):
@@ -83,7 +78,7 @@ def _rss_mb(pid: int, field: str = "VmRSS") -> float:
 def server(tmp_path_factory):
     if not Path("/proc/self/status").exists():
         pytest.skip("needs /proc to read the server's memory")
-    port = _free_port()
+    port = free_port()
     log = tmp_path_factory.mktemp("app_load") / "server.log"
     env = dict(os.environ, PYTHONPATH=os.pathsep.join(
         [str(ROOT)] + [p for p in os.environ.get("PYTHONPATH", "").split(os.pathsep) if p]))
@@ -96,13 +91,7 @@ def server(tmp_path_factory):
         assert "freqpair explorer at" in line, (line, log.read_text())
         yield {"url": f"http://127.0.0.1:{port}/", "pid": proc.pid, "log": log}
     finally:
-        proc.terminate()
-        try:
-            proc.wait(timeout=20)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
-        proc.stdout.close()
+        stop_server(proc, timeout=20)
 
 
 # ------------------------------------------------------------------ client side

@@ -7,39 +7,16 @@ Oracle: DESIGN.md §3–§4 (contracts) and common practice for command-line too
 import json
 import math
 import re
-import subprocess
-import sys
 
 import pytest
 
 from conftest import EXAMPLES, ROOT
+from helpers import NPN_PAIR, run_cli
 
-BASE = """\
-[supply]
-positive = 12
-negative = -12
-[bias]
-tail_current = "1 mA"
-[pair]
-type = "npn"
-beta = 200
-early_voltage = 80
-[load]
-type = "resistor"
-resistance = "10 k"
-[tail]
-type = "norton"
-resistance = "1 M"
-"""
+BASE = NPN_PAIR
 
 CONTRACT_KEYS = {"operating_point", "adm_db", "f3db_hz", "ugf_hz", "acm_se_db", "cmrr_se_db",
                  "cmrr_db", "cmrr_corner_hz", "tail"}
-
-
-def run_cli(*args):
-    return subprocess.run([sys.executable, "-m", "freqpair.cli", *map(str, args)],
-                          capture_output=True, text=True, cwd=ROOT, timeout=60,
-                          env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
 
 
 BAD_FILES = {

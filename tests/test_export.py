@@ -71,7 +71,7 @@ def test_csv_columns_round_trip_to_the_library(path, tmp_path):
 
 
 def test_csv_holds_frequency_every_response_and_cmrr(tmp_path):
-    # oracle: the column list — frequency, dB and degrees of every gain, CMRR
+    # oracle: README (`--csv FILE`) — frequency, dB and degrees of every gain, CMRR
     src = ROOT / "examples" / "npn_resistor_rc_tail.toml"
     out = tmp_path / "c.csv"
     subprocess.run([sys.executable, "-m", "freqpair.cli", "analyze", str(src), "--csv", str(out)],

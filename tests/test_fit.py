@@ -18,6 +18,7 @@ from freqpair.design import replace_value
 from freqpair.fit import FitError, FreeValue, fit_design, parse_free_spec
 from freqpair.measured import Measurement, model_response
 from freqpair.responses import StageResponses
+from helpers import run_cli
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent
 DESIGN_PATH = ROOT / "examples" / "npn_resistor_rc_tail.toml"
@@ -182,9 +183,7 @@ def test_fewer_points_than_free_values_is_refused(design):
 
 # ---------------------------------------------------------------- command line
 def _run(*args, cwd):
-    return subprocess.run([sys.executable, "-m", "freqpair.cli", *map(str, args)],
-                          capture_output=True, text=True, cwd=cwd,
-                          env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"}, timeout=60)
+    return run_cli(*args, cwd=cwd)
 
 
 def _write_csv(path, meas):

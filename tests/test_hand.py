@@ -4,19 +4,17 @@ import math
 import pytest
 
 import freqpair
-from freqpair.design import BUILTIN_EXAMPLE, replace_value
+from freqpair.design import BUILTIN_EXAMPLE
 from freqpair.hand import hand_json, hand_table
 
 from conftest import ROOT
+from helpers import design_with
 
 BENCH = ROOT / "examples" / "npn_resistor_rc_tail.toml"
 
 
 def _variant(path, **changes):
-    d = freqpair.load_design(path)
-    for key, value in changes.items():
-        d = replace_value(d, key.replace("__", "."), value)
-    return freqpair.analyze(d)
+    return freqpair.analyze(design_with(path, **changes))
 
 
 def _rows(a):

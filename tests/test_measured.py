@@ -5,30 +5,15 @@ import numpy as np
 import pytest
 
 import freqpair
+from helpers import design_with
 from freqpair.measured import (Measurement, MeasurementError, normalize_kind, overlay,
                                parse_measurement_text, read_measurement, wrap_deg)
 
 # A pair close to the textbook idealisation: huge β and V_A, no device capacitances,
 # a Norton tail R ∥ C. Used as the oracle stage for the overlay.
-IDEAL_PAIR = """
-name = "near-ideal npn pair"
-[supply]
-positive = 15
-negative = -15
-[bias]
-tail_current = "1 mA"
-[pair]
-type = "npn"
-beta = 1e7
-early_voltage = 1e7
-[load]
-type = "resistor"
-resistance = "5 k"
-[tail]
-type = "norton"
-resistance = "200 k"
-capacitance = "4 pF"
-"""
+IDEAL_PAIR = design_with(name="near-ideal npn pair", supply__positive=15, supply__negative=-15,
+                         pair__beta=1e7, pair__early_voltage=1e7, load__resistance="5 k",
+                         tail__resistance="200 k", tail__capacitance="4 pF")
 
 
 def _cmrr_textbook(f_hz, design):
@@ -141,7 +126,7 @@ def test_wrap_deg_maps_into_half_open_interval():
 
 
 def test_overlay_model_matches_textbook_cmrr_and_residual_is_measured_minus_model():
-    design = freqpair.design_from_text(IDEAL_PAIR)
+    design = IDEAL_PAIR
     f = np.logspace(2, 7, 11)
     truth = _cmrr_textbook(f, design)
     meas = Measurement("cmrr", f, 20 * np.log10(np.abs(truth)) + 1.0,
@@ -168,7 +153,7 @@ def test_overlay_of_zero_model_gain_is_refused(builtin_design):
 def test_overlay_figure_holds_measurement_model_and_residual():
     pytest.importorskip("bokeh")
     from freqpair.measured_plots import overlay_columns, overlay_figure
-    design = freqpair.design_from_text(IDEAL_PAIR)
+    design = IDEAL_PAIR
     f = np.logspace(3, 6, 7)
     meas = Measurement("cmrr", f, np.full(7, 60.0), np.full(7, 170.0))
     ov = overlay(freqpair.analyze(design), meas)

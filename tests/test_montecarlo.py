@@ -136,6 +136,19 @@ def test_cli_montecarlo_prints_json_with_bands_and_yield(tmp_path):
     assert (tmp_path / "bands.csv").read_text().startswith("frequency_hz,")
 
 
+
+def test_cli_montecarlo_progress_option_forces_the_bar_off_a_terminal():
+    # oracle: README (Monte Carlo section) — "--progress / --no-progress force it";
+    # the bar goes to stderr, stdout keeps the one JSON object
+    out = subprocess.run([sys.executable, "-m", "freqpair.cli", "montecarlo",
+                          "examples/npn_resistor_rc_tail.toml", "-n", "20", "--points", "10",
+                          "--spread", "mismatch.load=normal:1%", "--json", "--progress"],
+                         capture_output=True, text=True, cwd=str(__import__("pathlib").Path(
+                             __file__).parent.parent))
+    assert out.returncode == 0, out.stderr
+    assert json.loads(out.stdout)["n_samples"] == 20
+    assert "montecarlo" in out.stderr
+
 def test_benchmark_smoke_runs_at_tiny_size():
     # common practice: the benchmark script runs (no timing asserts)
     import importlib.util

@@ -16,34 +16,17 @@ import freqpair
 from freqpair.analysis import analyze
 from freqpair.design import replace_value
 from freqpair.devices import thermal_voltage
+from helpers import design_with
 from freqpair.metrics import DB_3
 
 # A bipolar pair made "ideal" where a textbook formula assumes so:
 # β = 1e6 and V_A = 1e6 V (r_o ≈ 2 GΩ), no capacitances, R_s = r_b = 0.
-IDEALISH = """
-[supply]
-positive = 15
-negative = -15
-[bias]
-tail_current = "1 mA"
-[pair]
-type = "npn"
-beta = 1e6
-early_voltage = 1e6
-[load]
-type = "resistor"
-resistance = "10 k"
-[tail]
-type = "norton"
-resistance = "1 M"
-"""
+IDEALISH = design_with(supply__positive=15, supply__negative=-15, pair__beta=1e6,
+                       pair__early_voltage=1e6)
 
 
-def design(text=IDEALISH, **changes):
-    d = freqpair.design_from_text(text)
-    for key, value in changes.items():
-        d = replace_value(d, key.replace("__", "."), value)
-    return d
+def design(base=IDEALISH, **changes):
+    return design_with(base, **changes)
 
 
 def gm_ro_rl(result):
@@ -191,28 +174,10 @@ def test_dc_values_are_at_s_zero_not_at_the_first_sweep_point():
 
 
 # ------------------------------------------------------------------ crossings
-TAIL_CORNER = """
-[supply]
-positive = 15
-negative = -15
-[bias]
-tail_current = "1 mA"
-[pair]
-type = "npn"
-beta = 200
-early_voltage = 1e6
-cje = "0.5 pF"
-transit_time = "20 ps"
-cjc0 = "10 fF"
-[load]
-type = "resistor"
-resistance = "5 k"
-capacitance = "0.2 pF"
-[tail]
-type = "norton"
-resistance = "1 M"
-capacitance = "10 pF"
-"""
+TAIL_CORNER = design_with(supply__positive=15, supply__negative=-15, pair__early_voltage=1e6,
+                          pair__cje="0.5 pF", pair__transit_time="20 ps", pair__cjc0="10 fF",
+                          load__resistance="5 k", load__capacitance="0.2 pF",
+                          tail__capacitance="10 pF")
 
 
 def test_cmrr_corner_is_the_tail_rc_zero_when_it_lies_well_below_other_poles():
