@@ -299,10 +299,11 @@ def _draw_load(p: _Pen, design) -> None:
     p.line(X1 + 45, yc, X1 + 45, Y_OUT)
     p.line(X1, Y_OUT, X1 + 45, Y_OUT)
     p.dot(X1 + 45, yc)
-    label = (f"mirror load ({dev.type}, β {dev.beta:g})" if dev.is_bipolar
-             else f"mirror load ({dev.type}, {_v(dev.width, 'm')}/{_v(dev.length, 'm')})")
+    words = (f"{dev.type}, β {dev.beta:g}" if dev.is_bipolar
+             else f"{dev.type}, {_v(dev.width, 'm')}/{_v(dev.length, 'm')}")
     # beside the output device, clear of the devices and the gate bus
-    p.text(X2 + 34, yc + 4, label, "value", "start", 11)
+    p.text(X2 + 34, yc - 3, "mirror load", "value", "start", 11)
+    p.text(X2 + 34, yc + 11, words, "value", "start", 11)
 
 
 def _device_words(dev) -> str:
