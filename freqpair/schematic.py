@@ -1,9 +1,15 @@
 """A drawn picture of the configured stage, as inline SVG text.
 
 :func:`stage_svg` draws the pair (npn or nmos style), its load (resistors or
-a current mirror), the tail (ideal source, Norton R ∥ C, or a transistor
-tail), the source resistors and the load capacitors, each labelled with its
-value. The drawing is made here from lines, paths and text — freqpair's own
+a current mirror), the tail (ideal source, Norton R ∥ C, or the tail
+transistors themselves: simple mirror output, degenerated device with its
+resistor, cascode stack, each base/gate on a labelled bias node), the source
+resistors and the load capacitors, each labelled with its value. A second
+stage is drawn as an inverting transconductor (a triangle marked −g_m2) from
+o2 to ``out`` with C_in, R_out, its load capacitor and the Miller capacitor
+(with the nulling resistor when non-zero); the drawing widens to hold it. A
+stage in a loop gets a dashed arrow marked with β_f. pnp/pmos pairs are the
+mirror image: the rails swap, the drawing keeps its shape. The drawing is made here from lines, paths and text — freqpair's own
 look — and needs nothing at run time but the standard library.
 """
 from __future__ import annotations
