@@ -510,3 +510,14 @@ def test_kind_the_stage_does_not_have_is_refused_and_the_selector_goes_back():
     assert "not defined for this stage" in ex.message_text
     assert w(doc, "measured_kind").value == "cmrr"
     assert w(doc, "measured_cmrr").visible
+
+
+def test_pins_that_differ_from_the_screen_in_the_same_way_are_told_apart(app):
+    doc, ex = app
+    for c in ("2 pF", "5 pF"):
+        w(doc, "text:tail.capacitance").value = c
+        ex.pin()
+    w(doc, "kind:tail").value = "mirror"
+    # DESIGN.md §3a: a mirror tail has no `capacitance` key, so both pins differ from the
+    # screen by the tail kind; each is then named by its own C_tail too
+    assert ex.pin_labels() == ["pin 1: tail norton, C_tail 2 pF", "pin 2: tail norton, C_tail 5 pF"]

@@ -37,7 +37,8 @@ _PRIMARY_LABEL = {"adm": "differential gain A_dm",
 
 _SECTIONS = (("Supply & bias", ("supply.", "bias.")), ("Pair", ("pair.",)),
              ("Load", ("load.",)), ("Tail", ("tail.",)),
-             ("More", ("source.", "mismatch.", "feedback.", "second_stage.", "sweep.")))
+             ("Loop", ("feedback.", "second_stage.")),
+             ("More", ("source.", "mismatch.", "sweep.")))
 
 _DOWNLOAD_JS = """
 const d = source.data;
@@ -211,8 +212,8 @@ class Explorer:
         panels = []
         for title, prefixes in _SECTIONS:
             rows = [self._value_row(ev) for ev in values if ev.key.startswith(prefixes)]
-            if title == "More":
-                rows = self._optional_rows(rows)
+            if title == "Loop":
+                rows = self._loop_rows(rows)
             panels.append(TabPanel(title=title, child=column(*rows, spacing=0)))
         if self._files is None:
             self._files = self._files_block()
@@ -226,28 +227,31 @@ class Explorer:
         finally:
             self._syncing = False
 
-    def _optional_rows(self, rows):
-        """The "More" tab: feedback factor box (empty: no loop) and the second-stage switch."""
-        if self.design.feedback is None:
-            fb = TextInput(name="text:feedback.factor", value="", placeholder="none (no loop)",
-                           width=_TEXT_PX, margin=_MARGIN)
+    def _loop_rows(self, rows):
+        """The "Loop" tab: the feedback factor (empty box: no loop) and the second stage,
+        with a button that adds (freqpair's default values) or removes it."""
+        feedback = [r for r in rows if r.name == "row:feedback.factor"]
+        stage = [r for r in rows if r.name != "row:feedback.factor"]
+        if not feedback:
+            fb = TextInput(name="text:feedback.factor", value="", placeholder="none",
+                           width=_TEXT_PX, margin=_MARGIN, height=_ROW_PX)
             fb.on_change("value", self._text_callback("feedback.factor"))
             self.texts["feedback.factor"] = fb
-            rows.insert(0, row(_label("feedback factor β_f"), fb,
-                               Div(text="<small>empty box: no loop</small>", margin=_MARGIN)))
+            feedback = [row(_label("feedback factor β_f", "feedback.factor"), fb,
+                            name="row:feedback.factor")]
         has = self.design.second_stage is not None
-        toggle = Button(name="second_stage_toggle", width=180, margin=(4, 5, 4, 5),
+        toggle = Button(name="second_stage_toggle", width=170, margin=(4, 5, 4, 5),
                         label="Remove second stage" if has else "Add second stage")
         toggle.on_click(self.toggle_second_stage)
-        at = next((i for i, r in enumerate(rows) if getattr(r, "name", "") ==
-                   "row:second_stage.gm"), None)
-        rows.insert(at if at is not None else len(rows) - 3 if len(rows) >= 3 else len(rows),
-                    toggle)
-        return rows
+        return [_heading("Feedback", "empty the β_f box for no loop"), *feedback,
+                _heading("Second stage", "a gain stage on o2; with it the gain plotted "
+                                         "and the loop use A_total"),
+                toggle, *stage]
 
     def _value_row(self, ev):
         """One compact line per value: label, entry box and (not for counts) a slider."""
-        text = TextInput(name=f"text:{ev.key}", value=ev.text, width=_TEXT_PX, margin=_MARGIN)
+        text = TextInput(name=f"text:{ev.key}", value=ev.text, width=_TEXT_PX, margin=_MARGIN,
+                         height=_ROW_PX)
         text.on_change("value", self._text_callback(ev.key))
         self.texts[ev.key] = text
         label = _label(_short_label(ev), ev.key)
@@ -257,7 +261,7 @@ class Explorer:
         slider = Slider(name=f"slider:{ev.key}", start=ev.slider_lo, end=ev.slider_hi,
                         value=min(max(ev.slider_value(), ev.slider_lo), ev.slider_hi),
                         step=step, show_value=False, title=None, width=_SLIDER_PX,
-                        margin=(9, 5, 0, 8), bar_color=PALETTE["adm"])
+                        margin=(6, 5, 0, 8), bar_color=PALETTE["adm"])
         slider.on_change("value_throttled", self._slider_callback(ev))
         self.sliders[ev.key] = slider
         return row(label, text, slider, name=f"row:{ev.key}")
@@ -444,8 +448,17 @@ class Explorer:
 
     def pin_labels(self) -> list[str]:
         """Legend words of the pins, oldest first (``"pin 1: C_tail 2 pF"``)."""
-        return [f"pin {p.number}: {design_difference(p.design, self.design) or 'as now'}"
-                for p in self.pins]
+        texts = [design_difference(p.design, self.design) for p in self.pins]
+        out = []
+        for i, (pin, text) in enumerate(zip(self.pins, texts)):
+            group = [j for j, t in enumerate(texts) if t == text]
+            if text and len(group) > 1:       # same words for several pins: tell them apart
+                k = group.index(i)
+                other = self.pins[group[k + 1] if k + 1 < len(group) else group[k - 1]]
+                extra = design_difference(pin.design, other.design, limit=1)
+                text = f"{text}, {extra}" if extra else text
+            out.append(f"pin {pin.number}: {text or 'as now'}")
+        return out
 
     def _label_curves(self):
         if self._figures is None or self.data is None:
@@ -500,19 +513,25 @@ class Explorer:
 
 
 _TEXT_PX, _SLIDER_PX, _LABEL_PX = 96, 130, 132
-_MARGIN = (2, 4, 2, 4)
+_MARGIN = (1, 4, 1, 4)
+_ROW_PX = 28
 
 
 def _label(text: str, key: str = "") -> Div:
     """The label of one compact control line (the full design key as its tooltip)."""
     return Div(text=f"<span title='{_html(key)}' style='font-size:12px'>{_html(text)}</span>",
-               width=_LABEL_PX, margin=(8, 4, 2, 4))
+               width=_LABEL_PX, margin=(6, 4, 0, 4))
+
+
+def _heading(title: str, note: str) -> Div:
+    return Div(text=f"<b>{_html(title)}</b> <small>({_html(note)})</small>",
+               width=SIDEBAR_PX - 20, margin=(8, 4, 2, 4))
 
 
 def _short_label(ev) -> str:
     """The value's words without the section its tab already names."""
     label = ev.label
-    section = ev.key.split(".", 1)[0]
+    section = ev.key.split(".", 1)[0].replace("_", " ")
     if label.startswith(section + "."):
         label = label[len(section) + 1:]
     return label.replace(".", " ")
