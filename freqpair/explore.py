@@ -26,7 +26,8 @@ from .quantities import format_si
 from .responses import ZERO_GAIN_RATIO
 
 __all__ = ["explore", "explore_grid", "editable_values", "EditableValue", "switch_kind",
-           "KIND_CHOICES", "curves_csv", "CURVE_COLUMNS", "measured_view", "MEASURED_PLOT"]
+           "KIND_CHOICES", "curves_csv", "CURVE_COLUMNS", "measured_view", "MEASURED_PLOT",
+           "SECOND_STAGE_DEFAULTS", "with_second_stage", "design_difference"]
 
 #: Curve columns of ``explore(...)["curves"]`` in CSV order.
 CURVE_COLUMNS = ("f_hz", "adm_db", "adm_deg", "acm_se_db", "acm_se_deg", "acm_dm_db",
@@ -245,6 +246,101 @@ def switch_kind(design: Design, section: str, kind: str) -> Design:
                 data[other] = _section_template(other, data[other]["type"], pair_type,
                                                 data[other])
     return parse_design(data)
+
+
+# ------------------------------------------------------------------ optional sections
+#: Values a second stage starts from when the explorer adds one (SI units): a
+#: common-emitter stage of 4 mS into 150 kΩ with a 3 pF Miller capacitor.
+SECOND_STAGE_DEFAULTS = {"gm": 4e-3, "output_resistance": 150e3, "input_capacitance": 0.5e-12,
+                         "load_capacitance": 10e-12, "miller_capacitance": 3e-12,
+                         "nulling_resistance": 0.0}
+
+
+def with_second_stage(design: Design, present: bool) -> Design:
+    """A copy of ``design`` with a second stage (``present``) or without one.
+
+    An added stage takes :data:`SECOND_STAGE_DEFAULTS`; a design that already
+    has (or lacks) one is returned unchanged.
+    """
+    if (design.second_stage is not None) == bool(present):
+        return design
+    data = design_to_dict(design)
+    if present:
+        data["second_stage"] = dict(SECOND_STAGE_DEFAULTS)
+    else:
+        data.pop("second_stage", None)
+    return parse_design(data)
+
+
+# short names of often-compared values (the rest use the control's label)
+_SHORT = {"tail.capacitance": "C_tail", "tail.resistance": "R_tail",
+          "tail.extra_capacitance": "C_tail,extra", "tail.degeneration": "R_degeneration",
+          "load.resistance": "R_load", "load.capacitance": "C_load",
+          "bias.tail_current": "I_tail", "source.resistance": "R_s",
+          "feedback.factor": "β_f", "mismatch.load": "ΔR/R", "mismatch.gm": "Δg_m/g_m",
+          "second_stage.gm": "g_m2", "second_stage.miller_capacitance": "C_Miller",
+          "second_stage.nulling_resistance": "R_null",
+          "second_stage.load_capacitance": "C_L2", "second_stage.output_resistance": "R_out2",
+          "second_stage.input_capacitance": "C_in2"}
+_SECTION_WORDS = {"feedback": "feedback", "second_stage": "second stage"}
+
+
+def _kinds(data: dict, prefix: str = "") -> dict:
+    out = {}
+    for name, value in data.items():
+        if isinstance(value, dict):
+            out[f"{prefix}{name}"] = value.get("type")
+            out.update(_kinds(value, f"{prefix}{name}."))
+    return out
+
+
+def design_difference(old: Design, new: Design, limit: int = 2) -> str:
+    """Short words for what ``old`` has that ``new`` has not (``old``'s values).
+
+    Used to name a pinned snapshot against the design now on screen, e.g.
+    ``"C_tail 2 pF"``, ``"tail norton"`` or ``"no second stage"``.
+
+    Parameters
+    ----------
+    old, new : Design
+    limit : int
+        At most this many differences are named; the rest are counted ("+2 more").
+
+    Returns
+    -------
+    str
+        ``""`` when the two designs have the same values (the name aside).
+    """
+    parts: list[str] = []
+    old_kinds, new_kinds = _kinds(design_to_dict(old)), _kinds(design_to_dict(new))
+    changed_kind = set()
+    for section, kind in old_kinds.items():
+        if section not in new_kinds:
+            continue
+        if kind != new_kinds[section]:
+            parts.append(f"{section.replace('_', ' ')} {kind}")
+            changed_kind.add(section + ".")
+    for section in new_kinds:
+        if "." not in section and section not in old_kinds:
+            parts.append(f"no {_SECTION_WORDS.get(section, section.replace('_', ' '))}")
+            changed_kind.add(section + ".")
+    old_values = editable_values(old)
+    for section in old_kinds:
+        n_values = sum(ev.key.startswith(section + ".") for ev in old_values)
+        if "." not in section and section not in new_kinds and n_values > 1:
+            parts.append(f"with {_SECTION_WORDS.get(section, section.replace('_', ' '))}")
+            changed_kind.add(section + ".")
+    new_values = {ev.key: ev for ev in editable_values(new)}
+    for ev in old_values:
+        if any(ev.key.startswith(p) for p in changed_kind):
+            continue
+        other = new_values.get(ev.key)
+        if other is None or other.value != ev.value:
+            name = _SHORT.get(ev.key) or ev.label.replace(".", " ")
+            parts.append(f"{name} {ev.text}")
+    if len(parts) > limit:
+        parts = parts[:limit] + [f"+{len(parts) - limit} more"]
+    return ", ".join(parts)
 
 
 # ------------------------------------------------------------------ the data

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 __all__ = ["PALETTE", "GAIN_SERIES", "bode_figure", "cmrr_figure", "pole_zero_figure",
            "add_residual_axis", "eng_formatter", "style_figure", "freq_figure", "mark_frequency",
-           "CYCLE"]
+           "CYCLE", "PIN_STYLES", "pin_legend_items", "set_legend_label"]
 
 #: freqpair's own colours: deep teal, burnt orange, plum, olive, crimson, amber; the
 #: measurement in slate blue. Keys are the gain names of ``responses.RESPONSE_NAMES``
@@ -24,6 +24,11 @@ PALETTE = {
 
 #: The same scheme as a cycle, for one curve per design (comparisons).
 CYCLE = ("#0b6e69", "#c2571a", "#6b4c9a", "#7d8431", "#b23a48", "#d99a00", "#34508c")
+
+#: Muted (colour, dash) of pinned snapshots, one per pin slot: quieter than the live
+#: curves so the design on screen stays in front.
+PIN_STYLES = (("#8c8c8c", "dashed"), ("#a58fbf", "dotted"), ("#b98f6c", "dotdash"),
+              ("#79a3a0", "dashdot"), ("#a9a463", [8, 3, 2, 3]))
 
 #: (column prefix, legend label) of the gain curves.
 GAIN_SERIES = (("adm", "differential gain A_dm"),
@@ -94,6 +99,46 @@ def mark_frequency(fig, f_hz, label: str, colour: str | None = None) -> None:
                          text_font_size="11px", text_color=colour, x_offset=4))
 
 
+def _pin_sources(pinned):
+    """``pinned`` as a list of sources (None, one source, or a sequence of them)."""
+    if pinned is None:
+        return []
+    return list(pinned) if isinstance(pinned, (list, tuple)) else [pinned]
+
+
+def _pin_lines(fig, pinned, col: str, prefix: str) -> None:
+    """One muted line of column ``col`` per pin source; legend item ``"pin <k>"``."""
+    for k, src in enumerate(_pin_sources(pinned)):
+        colour, dash = PIN_STYLES[k % len(PIN_STYLES)]
+        fig.line("f_hz", col, source=src, color=colour, line_dash=dash, line_width=1.5,
+                 line_alpha=0.9, legend_label=f"pin {k + 1}", name=f"{prefix}_pin{k}")
+
+
+def pin_legend_items(fig, slot: int) -> list:
+    """Legend items of pin slot ``slot`` in ``fig`` (renderers named ``*_pin<slot>``)."""
+    if not fig.legend:
+        return []
+    tag = f"_pin{slot}"
+    return [item for item in fig.legend[0].items
+            if any((r.name or "").endswith(tag) for r in item.renderers)]
+
+
+def set_legend_label(fig, renderer_name: str, text: str) -> None:
+    """Relabel the legend item holding the renderer named ``renderer_name``."""
+    from bokeh.core.properties import value
+    for item in (fig.legend[0].items if fig.legend else []):
+        if any(r.name == renderer_name for r in item.renderers):
+            if item.label != value(text):
+                item.label = value(text)
+
+
+def _hide_empty_pins(fig, pinned) -> None:
+    for k, src in enumerate(_pin_sources(pinned)):
+        empty = not src.data or not len(next(iter(src.data.values()), []))
+        for item in pin_legend_items(fig, k):
+            item.visible = not empty
+
+
 def _freq_figure(title, y_label, x_range=None, **kw):
     from bokeh.plotting import figure
     args = dict(x_axis_type="log", title=title, tools="pan,wheel_zoom,box_zoom,reset,save",
@@ -117,8 +162,10 @@ def bode_figure(source, quantity: str = "magnitude", series=GAIN_SERIES, pinned=
     quantity : {"magnitude", "phase"}
     series : sequence of (prefix, label)
         Which gains to draw; colours from :data:`PALETTE` by prefix.
-    pinned : ColumnDataSource, optional
-        A snapshot with the same columns, drawn dashed and grey.
+    pinned : ColumnDataSource or sequence of them, optional
+        Snapshots with the same columns, each drawn in its own muted colour and
+        dash (:data:`PIN_STYLES`) with a legend item ``"pin <k>"`` (hidden while
+        its source is empty; relabel it through :func:`pin_legend_items`).
     title : str, optional
     x_range : Range, optional
         Share the frequency range with another figure.
@@ -128,7 +175,7 @@ def bode_figure(source, quantity: str = "magnitude", series=GAIN_SERIES, pinned=
     Returns
     -------
     bokeh.plotting.figure
-        Line renderers are named ``"<prefix>"`` and ``"<prefix>_pinned"``.
+        Line renderers are named ``"<prefix>"`` and ``"<prefix>_pin<k>"`` (k from 0).
     """
     from bokeh.models import HoverTool
     if quantity not in ("magnitude", "phase"):
@@ -139,12 +186,12 @@ def bode_figure(source, quantity: str = "magnitude", series=GAIN_SERIES, pinned=
     renderers = []
     for prefix, name in series:
         col = prefix + suffix
-        if pinned is not None:
-            fig.line("f_hz", col, source=pinned, color=PALETTE["pinned"], line_dash="dashed",
-                     line_width=1.5, legend_label="pinned snapshot", name=prefix + "_pinned")
         r = fig.line("f_hz", col, source=source, color=PALETTE[prefix], line_width=2,
                      legend_label=name, name=prefix)
         renderers.append(r)
+    for prefix, _ in series:
+        _pin_lines(fig, pinned, prefix + suffix, prefix)
+    _hide_empty_pins(fig, pinned)
     unit = " dB" if quantity == "magnitude" else "°"
     tips = [("frequency", "@f_hz{eng}")] + [(name, f"@{p}{suffix}{{0.00}}{unit}")
                                             for p, name in series]
@@ -168,8 +215,8 @@ def cmrr_figure(source, corner, target=None, target_line=None, pinned=None, bala
         ``target`` may be None (no target drawn).
     target_line : ColumnDataSource, optional
         ``f_hz``, ``cmrr_db``: two points drawing the target level.
-    pinned : ColumnDataSource, optional
-        Snapshot drawn dashed.
+    pinned : ColumnDataSource or sequence of them, optional
+        Snapshots, drawn as in :func:`bode_figure` (renderers ``"cmrr_se_pin<k>"``).
     balanced : bool
         Also draw the balanced CMRR.
 
@@ -181,15 +228,13 @@ def cmrr_figure(source, corner, target=None, target_line=None, pinned=None, bala
     """
     from bokeh.models import HoverTool
     fig = _freq_figure(title, "CMRR [dB]", x_range, height=height)
-    if pinned is not None:
-        fig.line("f_hz", "cmrr_se_db", source=pinned, color=PALETTE["pinned"],
-                 line_dash="dashed", line_width=1.5, legend_label="pinned snapshot",
-                 name="cmrr_se_pinned")
     main = fig.line("f_hz", "cmrr_se_db", source=source, color=PALETTE["cmrr_se"], line_width=2,
                     legend_label="CMRR single-ended (o2)", name="cmrr_se")
     if balanced:
         fig.line("f_hz", "cmrr_db", source=source, color=PALETTE["cmrr"], line_width=1.5,
                  line_alpha=0.8, legend_label="CMRR balanced", name="cmrr")
+    _pin_lines(fig, pinned, "cmrr_se_db", "cmrr_se")
+    _hide_empty_pins(fig, pinned)
     if target_line is not None:
         fig.line("f_hz", "cmrr_db", source=target_line, color=PALETTE["target"],
                  line_dash="dotdash", line_width=1.5, legend_label="CMRR target", name="target")

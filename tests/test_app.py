@@ -91,15 +91,106 @@ def test_infeasible_bias_names_the_device_and_keeps_data(app):
     assert ex.design.bias.tail_current == pytest.approx(2e-3)
 
 
-def test_pin_keeps_a_snapshot_and_clear_removes_it(app):
+def _legend(fig):
+    return {item.label.value: item for item in fig.legend[0].items}
+
+
+def test_pins_accumulate_each_named_by_its_differing_value_and_clear_removes_all(app):
     doc, ex = app
-    old = np.array(ex.curves.data["cmrr_se_db"])
-    ex.pin()
-    w(doc, "text:tail.capacitance").value = "20 pF"
-    assert not np.array_equal(np.asarray(ex.curves.data["cmrr_se_db"]), old)
-    np.testing.assert_array_equal(np.asarray(ex.pinned.data["cmrr_se_db"]), old)
+    mag, phase, cmrr = ex._figures
+    shown = []
+    for c in ("2 pF", "5 pF", "20 pF"):
+        w(doc, "text:tail.capacitance").value = c
+        shown.append(np.array(ex.curves.data["cmrr_se_db"]))
+        ex.pin()
+    w(doc, "text:tail.capacitance").value = "1 pF"
+    # each pin keeps the curves that were on screen when it was taken (common practice:
+    # a snapshot does not follow later edits)
+    for k, want in enumerate(shown):
+        np.testing.assert_array_equal(np.asarray(ex.pin_sources[k].data["cmrr_se_db"]), want)
+    assert ex.pin_labels() == ["pin 1: C_tail 2 pF", "pin 2: C_tail 5 pF", "pin 3: C_tail 20 pF"]
+    for fig in (mag, cmrr):
+        legend = _legend(fig)
+        assert all(legend[name].visible for name in ex.pin_labels())
+        assert not legend["pin 4"].visible and not legend["pin 5"].visible
+    # each pin has its own colour and dash on every plot
+    styles = {(r.glyph.line_color, str(r.glyph.line_dash)) for r in cmrr.renderers
+              if (r.name or "").startswith("cmrr_se_pin")}
+    assert len(styles) == 5
     ex.clear_pins()
-    assert len(ex.pinned.data["cmrr_se_db"]) == 0
+    assert ex.pins == [] and all(len(s.data["cmrr_se_db"]) == 0 for s in ex.pin_sources)
+    assert not any(item.visible for fig in (mag, cmrr) for item in fig.legend[0].items
+                   if item.label.value.startswith("pin "))
+    ex.pin()
+    assert ex.pin_labels() == ["pin 1: as now"]       # numbering starts again
+
+
+def test_sixth_pin_drops_the_oldest_with_a_note(app):
+    doc, ex = app
+    for k in range(6):
+        w(doc, "text:load.capacitance").value = f"{k + 1} pF"
+        ex.pin()
+    assert [p.number for p in ex.pins] == [2, 3, 4, 5, 6]
+    assert "pin 1 dropped" in ex.message_text
+    # pin 6 reuses pin 1's slot, so the other pins keep their colours
+    assert ex.pins[-1].slot == 0
+    np.testing.assert_array_equal(np.asarray(ex.pin_sources[0].data["f_hz"]),
+                                  np.asarray(ex.curves.data["f_hz"]))
+
+
+def test_adding_a_second_stage_shows_a_total_and_removing_it_restores(app):
+    doc, ex = app
+    before = {k: np.array(v) for k, v in ex.curves.data.items()}
+    rows_before = dict(zip(ex.metrics.data["quantity"], ex.metrics.data["value"]))
+    toggle = w(doc, "second_stage_toggle")
+    assert toggle.label == "Add second stage" and "second_stage.gm" not in ex.texts
+    ex.toggle_second_stage()
+    d = ex.design
+    assert d.second_stage is not None and d.second_stage.gm == pytest.approx(4e-3)
+    assert d.second_stage.miller_capacitance == pytest.approx(3e-12)
+    for key in ("gm", "output_resistance", "input_capacitance", "load_capacitance",
+                "miller_capacitance", "nulling_resistance"):
+        assert f"second_stage.{key}" in ex.texts and doc.select_one(
+            {"name": f"text:second_stage.{key}"}) is not None
+    assert w(doc, "second_stage_toggle").label == "Remove second stage"
+    an = freqpair.analyze(d)
+    # oracle: freqpair.analyze on the same two-stage design (DESIGN.md §3a: A_total)
+    assert _row(ex, "overall gain A_total at DC") == f"{an.a_total_db:.2f} dB"
+    assert ex.data["primary"] == "a_total"
+    assert "overall gain A_total (second stage out)" in _legend(ex._figures[0])
+    # textbook (Gray & Meyer §9.4, from memory): A_total(0) = A_1·g_m2·R_out2 with A_1
+    # the first stage's DC gain at o2 (loaded by C only, so unchanged at DC)
+    a1 = 10 ** (an.adm_db_first / 20)
+    assert 10 ** (an.a_total_db / 20) == pytest.approx(a1 * 4e-3 * 150e3, rel=1e-9)
+    w(doc, "text:second_stage.miller_capacitance").value = "6 pF"    # its controls work
+    assert ex.design.second_stage.miller_capacitance == pytest.approx(6e-12)
+    ex.toggle_second_stage()
+    assert ex.design.second_stage is None and "second_stage.gm" not in ex.texts
+    assert w(doc, "second_stage_toggle").label == "Add second stage"
+    assert dict(zip(ex.metrics.data["quantity"], ex.metrics.data["value"])) == rows_before
+    for k, v in before.items():
+        np.testing.assert_array_equal(np.asarray(ex.curves.data[k]), v)
+    assert "differential gain A_dm" in _legend(ex._figures[0])
+
+
+def test_empty_feedback_box_removes_the_loop_and_offers_the_box_again(app):
+    doc, ex = app
+    w(doc, "text:feedback.factor").value = "0.05"
+    assert ex.design.feedback is not None and "phase margin" in ex.metrics.data["quantity"]
+    w(doc, "text:feedback.factor").value = ""
+    # DESIGN.md §3: [feedback] is optional; without it there are no margins
+    assert ex.design.feedback is None
+    assert _row(ex, "loop margins") == "set a feedback factor to see them"
+    assert w(doc, "text:feedback.factor").value == ""
+
+
+def test_value_controls_are_one_line_each(app):
+    doc, ex = app
+    # common practice for a 768 px high screen: label, entry and slider side by side
+    line = w(doc, "row:pair.beta")
+    names = [getattr(c, "name", None) for c in line.children]
+    assert names[1:] == ["text:pair.beta", "slider:pair.beta"]
+    assert w(doc, "text:pair.beta").title in (None, "")
 
 
 def test_saved_design_reads_back_as_the_design_on_screen(app):
@@ -419,3 +510,14 @@ def test_kind_the_stage_does_not_have_is_refused_and_the_selector_goes_back():
     assert "not defined for this stage" in ex.message_text
     assert w(doc, "measured_kind").value == "cmrr"
     assert w(doc, "measured_cmrr").visible
+
+
+def test_pins_that_differ_from_the_screen_in_the_same_way_are_told_apart(app):
+    doc, ex = app
+    for c in ("2 pF", "5 pF"):
+        w(doc, "text:tail.capacitance").value = c
+        ex.pin()
+    w(doc, "kind:tail").value = "mirror"
+    # DESIGN.md §3a: a mirror tail has no `capacitance` key, so both pins differ from the
+    # screen by the tail kind; each is then named by its own C_tail too
+    assert ex.pin_labels() == ["pin 1: tail norton, C_tail 2 pF", "pin 2: tail norton, C_tail 5 pF"]

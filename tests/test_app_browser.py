@@ -108,3 +108,49 @@ def test_measurement_uploaded_in_the_page_shows_markers_and_residual(tmp_path):
     # oracle: the CSV file's data rows (freqpair.measured reads them; counted by the reader)
     assert n == len(read_measurement(MEASURED, "cmrr"))
     assert errors == []
+
+
+SIDEBAR_BOTTOM_JS = """
+const doc = Bokeh.documents[0];
+const m = doc.get_model_by_name('controls');
+const v = Bokeh.index.find_one(m);
+return v ? [v.el.getBoundingClientRect().bottom, window.innerHeight] : null;
+"""
+
+
+@pytest.mark.browser
+def test_pins_and_second_stage_in_the_page_and_every_value_tab_fits_1366x768(server, tmp_path):
+    port, proc = server
+    driver = make_driver(tmp_path)
+    m = "Bokeh.documents[0].get_model_by_name"
+    click = ("const {ButtonClick} = Bokeh.require('core/bokeh_events');"
+             f"{m}(arguments[0]).trigger_event(new ButtonClick());")
+    bottoms = {}
+    try:
+        driver.get(f"http://127.0.0.1:{port}/")
+        wait_for_bokeh(driver)
+        wait_until(lambda: driver.execute_script(CORNER_JS))
+        driver.execute_script(click, "pin")
+        n_pinned = wait_until(lambda: driver.execute_script(
+            f"return {m}('pin_source:0').data.f_hz.length;"))
+        driver.execute_script(click, "second_stage_toggle")
+        wait_until(lambda: driver.execute_script(
+            f"return !!{m}('text:second_stage.gm');"))
+        for tab in range(6):      # every tab of values (Files is the 7th)
+            driver.execute_script(f"{m}('controls').active = arguments[0];", tab)
+            time.sleep(0.4)
+            bottoms[tab] = driver.execute_script(SIDEBAR_BOTTOM_JS)
+        driver.execute_script(f"{m}('controls').active = 1;")
+        time.sleep(0.5)
+        ARTIFACTS.mkdir(exist_ok=True)
+        driver.save_screenshot(str(ARTIFACTS / "explorer_pins_pair_tab.png"))
+        errors = console_errors(driver)
+    finally:
+        driver.quit()
+    # oracle: the curves hold 500 points (freqpair.app.view.N_POINTS); a pin copies them all
+    assert n_pinned == 500
+    # common practice: the controls are usable without scrolling on a 1366×768 screen
+    # (the window's inner height, browser bars excluded, is what must hold them)
+    for tab, (bottom, height) in bottoms.items():
+        assert bottom <= height, f"tab {tab}: bottom {bottom:.0f} px > {height} px"
+    assert errors == []

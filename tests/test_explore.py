@@ -174,3 +174,35 @@ def test_pole_zero_points_are_the_primary_gain_with_cancelled_pairs_left_out(des
     # differential half circuit (2 poles: input and output node); the 3 tail/common-mode
     # natural frequencies cancel against zeros and are not drawn
     assert pz["kind"].count("pole") == 2 and n_nat == 5
+
+
+def test_added_second_stage_has_the_documented_defaults_and_removal_restores(design):
+    from freqpair.explore import with_second_stage
+    two = with_second_stage(design, True)
+    s = two.second_stage
+    # DESIGN.md §3a example stage values (the explorer's documented starting point)
+    assert (s.gm, s.output_resistance, s.input_capacitance, s.load_capacitance,
+            s.miller_capacitance, s.nulling_resistance) == (4e-3, 150e3, 0.5e-12, 10e-12,
+                                                            3e-12, 0.0)
+    assert with_second_stage(two, True) is two
+    assert with_second_stage(two, False) == design
+    # textbook (Gray & Meyer §9.4, from memory): the two-stage DC gain is A_1·g_m2·R_out2
+    an = freqpair.analyze(two)
+    assert 10 ** (an.a_total_db / 20) == pytest.approx(
+        10 ** (an.adm_db_first / 20) * 4e-3 * 150e3, rel=1e-9)
+
+
+def test_design_difference_names_the_old_value_kind_or_section(design):
+    from freqpair.explore import design_difference, switch_kind, with_second_stage
+    changed = freqpair.replace_value(design, "tail.capacitance", "20 pF")
+    # common practice: a snapshot is labelled by its own value of what was changed
+    assert design_difference(design, changed) == "C_tail 2 pF"
+    assert design_difference(changed, design) == "C_tail 20 pF"
+    assert design_difference(design, design) == ""
+    assert design_difference(design, switch_kind(design, "tail", "ideal")) == "tail norton"
+    two = with_second_stage(design, True)
+    assert design_difference(design, two) == "no second stage"
+    assert design_difference(two, design) == "with second stage"
+    many = freqpair.replace_value(freqpair.replace_value(changed, "load.resistance", "5 k"),
+                                  "source.resistance", "50")
+    assert design_difference(design, many) == "R_load 10 kΩ, C_tail 2 pF, +1 more"

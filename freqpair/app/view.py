@@ -6,6 +6,8 @@ directory app's ``main.py`` calls it; tests call it on a fresh Document).
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import tomli_w
 from bokeh.layouts import column, row
 from bokeh.models import (Button, ColumnDataSource, CustomJS, DataTable, Div, FileInput,
@@ -14,20 +16,29 @@ from bokeh.models import (Button, ColumnDataSource, CustomJS, DataTable, Div, Fi
 from ..design import (BUILTIN_EXAMPLE, design_from_text, design_to_dict, load_design,
                       parse_design, replace_value)
 from ..errors import DesignError, FreqpairError
-from ..explore import (KIND_CHOICES, curves_csv, editable_values, explore, explore_grid,
-                       switch_kind)
-from ..plots import PALETTE, bode_figure, cmrr_figure, pole_zero_figure
+from ..explore import (KIND_CHOICES, curves_csv, design_difference, editable_values, explore,
+                       explore_grid, switch_kind, with_second_stage)
+from ..plots import (PALETTE, bode_figure, cmrr_figure, pin_legend_items, pole_zero_figure,
+                     set_legend_label)
 from .measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
 
-__all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS"]
+__all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS", "MAX_PINS", "Pin"]
 
 #: Frequency points per curve.
 N_POINTS = 500
 SIDEBAR_PX = 410
+#: Pinned snapshots kept at once; pinning one more drops the oldest.
+MAX_PINS = 5
+
+#: Legend words of the primary gain (``explore(...)["primary"]``).
+_PRIMARY_LABEL = {"adm": "differential gain A_dm",
+                  "adm_se": "differential gain A_dm,se (o2)",
+                  "a_total": "overall gain A_total (second stage out)"}
 
 _SECTIONS = (("Supply & bias", ("supply.", "bias.")), ("Pair", ("pair.",)),
              ("Load", ("load.",)), ("Tail", ("tail.",)),
-             ("More", ("source.", "mismatch.", "feedback.", "second_stage.", "sweep.")))
+             ("Loop", ("feedback.", "second_stage.")),
+             ("More", ("source.", "mismatch.", "sweep.")))
 
 _DOWNLOAD_JS = """
 const d = source.data;
@@ -46,6 +57,16 @@ _CSS_HEADER = ("background:#1f2a36;color:#fbf8f3;padding:6px 12px;border-radius:
 
 def _empty(columns):
     return {c: [] for c in columns}
+
+
+@dataclass(frozen=True)
+class Pin:
+    """One pinned snapshot: its number (1, 2, ... since the last clear), the pin
+    slot it is drawn in (colour and dash) and the design it shows."""
+
+    number: int
+    slot: int
+    design: object
 
 
 class Explorer:
@@ -74,7 +95,10 @@ class Explorer:
         self._syncing = False
         self._downloads = 0
         self.curves = ColumnDataSource(name="curves_source")
-        self.pinned = ColumnDataSource(name="pinned_source")
+        self.pin_sources = [ColumnDataSource(name=f"pin_source:{k}") for k in range(MAX_PINS)]
+        self.pins: list[Pin] = []
+        self._pin_count = 0
+        self._figures = None
         self.corner = ColumnDataSource(_empty(("f_hz", "cmrr_db")), name="corner_source")
         self.target = ColumnDataSource(_empty(("f_hz", "cmrr_db")), name="target_source")
         self.target_line = ColumnDataSource(_empty(("f_hz", "cmrr_db")), name="target_line")
@@ -105,7 +129,8 @@ class Explorer:
         if not self.apply(design):
             self.design = parse_design(design_to_dict(design))
         self._build_controls()
-        self.pinned.data = {k: v[:0] for k, v in self.curves.data.items()}
+        for src in self.pin_sources:
+            src.data = {k: v[:0] for k, v in self.curves.data.items()}
         if note:
             self._say(note, bad=True)
         doc.title = "freqpair explorer"
@@ -114,13 +139,16 @@ class Explorer:
     # ------------------------------------------------------------- layout
     def _layout(self):
         grid = self.curves
-        mag = bode_figure(grid, "magnitude", pinned=self.pinned, height=270)
-        phase = bode_figure(grid, "phase", pinned=self.pinned, x_range=mag.x_range, height=210)
+        pins = self.pin_sources
+        mag = bode_figure(grid, "magnitude", pinned=pins, height=270)
+        phase = bode_figure(grid, "phase", pinned=pins, x_range=mag.x_range, height=210)
         phase.legend.visible = False
         mag.xaxis.axis_label = None
         balanced = self.data is None or self.data["balanced"]
-        cmrr = cmrr_figure(grid, self.corner, self.target, self.target_line, pinned=self.pinned,
+        cmrr = cmrr_figure(grid, self.corner, self.target, self.target_line, pinned=pins,
                            balanced=balanced, height=480)
+        self._figures = (mag, phase, cmrr)
+        self._label_curves()
         pz = pole_zero_figure(self.pz, height=480)
         self.measured.add_to(mag, cmrr)
         self.measured.show(self.data)
@@ -184,13 +212,9 @@ class Explorer:
         panels = []
         for title, prefixes in _SECTIONS:
             rows = [self._value_row(ev) for ev in values if ev.key.startswith(prefixes)]
-            if title == "More" and self.design.feedback is None:
-                fb = TextInput(name="text:feedback.factor", title="feedback factor β_f "
-                               "(empty: no loop)", value="", width=170)
-                fb.on_change("value", self._text_callback("feedback.factor"))
-                self.texts["feedback.factor"] = fb
-                rows.insert(0, fb)
-            panels.append(TabPanel(title=title, child=column(*rows)))
+            if title == "Loop":
+                rows = self._loop_rows(rows)
+            panels.append(TabPanel(title=title, child=column(*rows, spacing=0)))
         if self._files is None:
             self._files = self._files_block()
         panels.append(TabPanel(title="Files", child=self._files))
@@ -203,20 +227,44 @@ class Explorer:
         finally:
             self._syncing = False
 
+    def _loop_rows(self, rows):
+        """The "Loop" tab: the feedback factor (empty box: no loop) and the second stage,
+        with a button that adds (freqpair's default values) or removes it."""
+        feedback = [r for r in rows if r.name == "row:feedback.factor"]
+        stage = [r for r in rows if r.name != "row:feedback.factor"]
+        if not feedback:
+            fb = TextInput(name="text:feedback.factor", value="", placeholder="none",
+                           width=_TEXT_PX, margin=_MARGIN, height=_ROW_PX)
+            fb.on_change("value", self._text_callback("feedback.factor"))
+            self.texts["feedback.factor"] = fb
+            feedback = [row(_label("feedback factor β_f", "feedback.factor"), fb,
+                            name="row:feedback.factor")]
+        has = self.design.second_stage is not None
+        toggle = Button(name="second_stage_toggle", width=170, margin=(4, 5, 4, 5),
+                        label="Remove second stage" if has else "Add second stage")
+        toggle.on_click(self.toggle_second_stage)
+        return [_heading("Feedback", "empty the β_f box for no loop"), *feedback,
+                _heading("Second stage", "a gain stage on o2; with it the gain plotted "
+                                         "and the loop use A_total"),
+                toggle, *stage]
+
     def _value_row(self, ev):
-        text = TextInput(name=f"text:{ev.key}", title=ev.label, value=ev.text, width=150)
+        """One compact line per value: label, entry box and (not for counts) a slider."""
+        text = TextInput(name=f"text:{ev.key}", value=ev.text, width=_TEXT_PX, margin=_MARGIN,
+                         height=_ROW_PX)
         text.on_change("value", self._text_callback(ev.key))
         self.texts[ev.key] = text
+        label = _label(_short_label(ev), ev.key)
         if ev.scale == "int":
-            return text
+            return row(label, text, name=f"row:{ev.key}")
         step = 0.01 if ev.scale == "log" else (ev.slider_hi - ev.slider_lo) / 200
         slider = Slider(name=f"slider:{ev.key}", start=ev.slider_lo, end=ev.slider_hi,
                         value=min(max(ev.slider_value(), ev.slider_lo), ev.slider_hi),
-                        step=step, show_value=False, title="", width=200,
-                        bar_color=PALETTE["adm"])
+                        step=step, show_value=False, title=None, width=_SLIDER_PX,
+                        margin=(6, 5, 0, 8), bar_color=PALETTE["adm"])
         slider.on_change("value_throttled", self._slider_callback(ev))
         self.sliders[ev.key] = slider
-        return row(text, column(Div(text="", height=8), slider))
+        return row(label, text, slider, name=f"row:{ev.key}")
 
     def _text_callback(self, key):
         def cb(attr, old, new):
@@ -275,11 +323,24 @@ class Explorer:
         except FreqpairError as exc:
             self._say(f"{exc} — kept the last good result", bad=True)
             return False
-        had_feedback = self.design.feedback is not None
+        return self._apply_and_rebuild(design)
+
+    def _apply_and_rebuild(self, design) -> bool:
+        """Apply ``design``; rebuild the controls when an optional section came or went."""
+        before = (self.design.feedback is not None, self.design.second_stage is not None)
         ok = self.apply(design)
-        if ok and (design.feedback is not None) != had_feedback:
+        if ok and (design.feedback is not None, design.second_stage is not None) != before:
             self._build_controls()
         return ok
+
+    def toggle_second_stage(self) -> bool:
+        """Add a second stage (freqpair's default values) or remove the one there is."""
+        try:
+            design = with_second_stage(self.design, self.design.second_stage is None)
+        except FreqpairError as exc:
+            self._say(f"{exc} — kept the last good result", bad=True)
+            return False
+        return self._apply_and_rebuild(design)
 
     def _target_db(self) -> float:
         text = self.target_input.value.strip().removesuffix("dB").strip()
@@ -339,6 +400,7 @@ class Explorer:
             self.header.text = (f"<div style='{_CSS_HEADER}'><b>freqpair explorer</b> — "
                                 f"{_html(name)}</div>")
             self._say(_status(data), bad=False)
+            self._label_curves()
         finally:
             self.doc.unhold()
         self._sync_controls()   # outside the hold: its own callbacks are muted here
@@ -349,13 +411,75 @@ class Explorer:
                              f"border-radius:3px;font-family:sans-serif'>{_html(text)}</div>")
         self.message_text = text
 
-    def pin(self):
-        """Keep the current curves as a dashed snapshot."""
-        self.pinned.data = dict(self.curves.data)
+    def pin(self) -> Pin:
+        """Keep the current curves as a snapshot drawn beside the live ones.
+
+        Up to :data:`MAX_PINS` snapshots are kept; one more drops the oldest
+        (with a note). Each is named in the legends by what differs from the
+        design on screen (:func:`freqpair.explore.design_difference`).
+        """
+        self._pin_count += 1
+        note = ""
+        if len(self.pins) >= MAX_PINS:
+            dropped = self.pins.pop(0)
+            note = (f" — pin {dropped.number} dropped (at most {MAX_PINS} pins; "
+                    "Clear pins removes all)")
+        pin = Pin(self._pin_count, (self._pin_count - 1) % MAX_PINS, self.design)
+        self.pins.append(pin)
+        self.doc.hold("combine")
+        try:
+            self.pin_sources[pin.slot].data = dict(self.curves.data)
+            self._label_pins()
+        finally:
+            self.doc.unhold()
+        self._say(f"pinned the curves on screen as pin {pin.number}{note}", bad=False)
+        return pin
 
     def clear_pins(self):
-        """Remove the pinned snapshot."""
-        self.pinned.data = {k: [] for k in self.curves.data}
+        """Remove every pinned snapshot (numbering starts again at 1)."""
+        self.doc.hold("combine")
+        try:
+            for src in self.pin_sources:
+                src.data = {k: [] for k in self.curves.data}
+            self.pins, self._pin_count = [], 0
+            self._label_pins()
+        finally:
+            self.doc.unhold()
+
+    def pin_labels(self) -> list[str]:
+        """Legend words of the pins, oldest first (``"pin 1: C_tail 2 pF"``)."""
+        texts = [design_difference(p.design, self.design) for p in self.pins]
+        out = []
+        for i, (pin, text) in enumerate(zip(self.pins, texts)):
+            group = [j for j, t in enumerate(texts) if t == text]
+            if text and len(group) > 1:       # same words for several pins: tell them apart
+                k = group.index(i)
+                other = self.pins[group[k + 1] if k + 1 < len(group) else group[k - 1]]
+                extra = design_difference(pin.design, other.design, limit=1)
+                text = f"{text}, {extra}" if extra else text
+            out.append(f"pin {pin.number}: {text or 'as now'}")
+        return out
+
+    def _label_curves(self):
+        if self._figures is None or self.data is None:
+            return
+        set_legend_label(self._figures[0], "adm", _PRIMARY_LABEL[self.data["primary"]])
+        self._label_pins()
+
+    def _label_pins(self):
+        """Show each slot's legend item with its pin's name; hide empty slots."""
+        if self._figures is None:
+            return
+        from bokeh.core.properties import value
+        by_slot = {p.slot: text for p, text in zip(self.pins, self.pin_labels())}
+        for fig in self._figures:
+            for slot in range(MAX_PINS):
+                for item in pin_legend_items(fig, slot):
+                    shown = slot in by_slot
+                    if item.visible != shown:
+                        item.visible = shown
+                    if shown and item.label != value(by_slot[slot]):
+                        item.label = value(by_slot[slot])
 
     def _download(self, filename, text, mime):
         self._downloads += 1
@@ -386,6 +510,31 @@ class Explorer:
             self._build_controls()
             return True
         return False
+
+
+_TEXT_PX, _SLIDER_PX, _LABEL_PX = 96, 130, 132
+_MARGIN = (1, 4, 1, 4)
+_ROW_PX = 28
+
+
+def _label(text: str, key: str = "") -> Div:
+    """The label of one compact control line (the full design key as its tooltip)."""
+    return Div(text=f"<span title='{_html(key)}' style='font-size:12px'>{_html(text)}</span>",
+               width=_LABEL_PX, margin=(6, 4, 0, 4))
+
+
+def _heading(title: str, note: str) -> Div:
+    return Div(text=f"<b>{_html(title)}</b> <small>({_html(note)})</small>",
+               width=SIDEBAR_PX - 20, margin=(8, 4, 2, 4))
+
+
+def _short_label(ev) -> str:
+    """The value's words without the section its tab already names."""
+    label = ev.label
+    section = ev.key.split(".", 1)[0].replace("_", " ")
+    if label.startswith(section + "."):
+        label = label[len(section) + 1:]
+    return label.replace(".", " ")
 
 
 def _html(text: str) -> str:
