@@ -11,6 +11,11 @@ free values:
   --free KEY            fit KEY between its design value /10 and x10
   --free KEY=LOW:HIGH   fit KEY between LOW and HIGH (SI numbers: 1p, 470k, 2.2e-12)
   e.g. --free tail.capacitance=0.5p:20p --free tail.resistance --free pair.cjc0
+  signed values (mismatch.load, mismatch.gm, bias.input_common_mode, supply.*)
+  are fitted on a linear scale; mismatch bounds default to -0.2:0.2, e.g.
+  --free mismatch.load=-0.05:0.05 --free bias.input_common_mode=-2:2
+  magnitude-only data (|A_cm-dm|, balanced CMRR) cannot tell a mismatch's sign:
+  a warning says so; a measured A_cm-dm phase settles it
 
 kinds: adm (the design's differential gain), adm_se, acm_se, acm_dm,
        cmrr (single-ended CMRR), cmrr_balanced
@@ -31,6 +36,10 @@ def _unit(key: str) -> str:
         return "F"
     if "resistance" in last or last == "degeneration":
         return "Ω"
+    if key.startswith("mismatch."):
+        return ""
+    if key.startswith("supply.") or last == "input_common_mode":
+        return "V"
     return {"tail_current": "A", "transit_time": "s", "ft": "Hz", "gm": "S",
             "early_voltage": "V"}.get(last, "")
 
@@ -38,7 +47,11 @@ def _unit(key: str) -> str:
 def format_fit(result, measurement) -> str:
     """Readable summary of a :class:`~freqpair.fit.FitResult`."""
     from .measured import KINDS
-    from .quantities import format_si
+    from .quantities import format_si as _si
+
+    def format_si(value, unit):
+        # relative values (mismatch) read best as plain numbers: 0.012, not "12 m"
+        return _si(value, unit) if unit else f"{value:.4g}"
     f = measurement.f_hz
     lines = [f"freqpair fit — {result.kind} ({KINDS[result.kind]}), {result.n_points} points, "
              f"{format_si(f[0], 'Hz')} … {format_si(f[-1], 'Hz')}"]
@@ -50,14 +63,20 @@ def format_fit(result, measurement) -> str:
             unc = "not identifiable"
         elif v.sigma is None:
             unc = "∞"
+        elif v.relative_sigma is None:
+            unc = f"± {format_si(v.sigma, u)}"
         else:
             unc = f"± {format_si(v.sigma, u)} ({v.relative_sigma:.2%})"
+        if v.identifiable and not v.sign_identifiable:
+            unc += " sign?"
         flag = "  (at bound)" if v.at_bound and v.identifiable else ""
         lines.append(f"  {v.key:<{width}}  {format_si(v.initial, u):>11}  "
                      f"{format_si(v.fitted, u):>11}  {unc:>22}  "
                      f"{format_si(v.lower, u)} … {format_si(v.upper, u)}{flag}")
-    text = (f"rms residual: {result.rms_residual_db_initial:.3g} dB with the design, "
-            f"{result.rms_residual_db:.3g} dB fitted")
+    initial = ("no dB value (the design's gain is zero)"
+               if result.rms_residual_db_initial is None
+               else f"{result.rms_residual_db_initial:.3g} dB")
+    text = f"rms residual: {initial} with the design, {result.rms_residual_db:.3g} dB fitted"
     if result.rms_residual_deg is not None:
         text += f" (phase {result.rms_residual_deg:.3g} deg)"
     lines.append(text)

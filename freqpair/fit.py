@@ -1,6 +1,9 @@
-"""Fit a design's hidden values (tail R and C, load C, C_jc0 …) to a measurement.
+"""Fit a design's hidden values (tail R and C, load C, C_jc0, mismatch …) to a measurement.
 
-The free values are fitted in log space (``x = ln p``) within bounds by
+Sizes (resistances, capacitances, currents …) are fitted in log space
+(``x = ln p``); signed values — :data:`SIGNED_KEYS` (mismatch, input common
+mode, supply rails) and any key whose design value or a given bound is
+negative — are fitted in linear space (``x = p``). Both within bounds, by
 :func:`scipy.optimize.least_squares` (trust-region reflective). The residual
 vector is the measurement minus the model in dB, followed — when the
 measurement has a phase — by the wrapped phase residual in degrees times
@@ -9,7 +12,8 @@ that makes one neper of gain and one radian of phase count the same).
 
 Uncertainty: the Gauss–Newton covariance at the solution,
 ``cov = s²·(JᵀJ)⁻¹`` with ``s² = Σr²/(m − n)`` and J the Jacobian with respect
-to ln p, so ``sqrt(cov_kk)`` is a relative standard uncertainty. It is
+to x: for a log value ``sqrt(cov_kk)`` is a relative standard uncertainty, for
+a linear value the plain standard uncertainty in the value's own unit. It is
 computed through the singular values of J, so a flat direction gives an
 infinite uncertainty rather than a warning from a matrix inverse.
 
@@ -18,7 +22,19 @@ residual noise floored at :data:`NOISE_FLOOR_DB` (0.01 dB), its relative
 standard uncertainty exceeds :data:`MAX_RELATIVE_SIGMA` (50 %) — the data
 cannot see it (a flat direction of the Jacobian). Such a value is left at the
 design's value in the fitted design, and a warning says so. A value that ends
-at a bound is kept there and flagged too (widen the bounds).
+at a bound is kept there and flagged too (widen the bounds). For a linear
+value the yardstick is its scale ``max(|estimate|, 1 % of the bound span)``:
+not identifiable when σ (at the noise floor) exceeds 50 % of that scale.
+
+Signs: swapping the two sides of the pair flips every mismatch sign and only
+flips the sign of A_cm-dm, so magnitude data (|A_cm-dm|, balanced CMRR) cannot
+tell +δ from −δ. When mismatch values are free with bounds that allow both
+signs, the fit starts twice, from ±δ, and compares the two minima: if they
+differ by less than :data:`SIGN_CHI2` in Σr²/s² (s² the residual variance,
+floored), the sign is flagged as not identifiable (``sign_identifiable``
+False, a warning) and the solution with the design's sign (+ when the design
+has 0) is kept. Phase data of A_cm-dm settle the sign (it flips by 180°).
+Default bounds of mismatch values are :data:`MISMATCH_BOUNDS` (±0.2).
 """
 from __future__ import annotations
 
@@ -33,7 +49,8 @@ from .errors import FreqpairError
 from .measured import Measurement, model_response, wrap_deg
 
 __all__ = ["FitError", "FreeValue", "FittedValue", "FitResult", "fit_design",
-           "parse_free_spec", "NOISE_FLOOR_DB", "MAX_RELATIVE_SIGMA", "DEFAULT_SPAN"]
+           "parse_free_spec", "NOISE_FLOOR_DB", "MAX_RELATIVE_SIGMA", "DEFAULT_SPAN",
+           "SIGNED_KEYS", "MISMATCH_BOUNDS", "SIGN_CHI2", "is_signed_key"]
 
 #: Residual noise floor [dB] used when judging identifiability.
 NOISE_FLOOR_DB = 0.01
@@ -43,8 +60,24 @@ MAX_RELATIVE_SIGMA = 0.5
 DEFAULT_SPAN = 10.0
 #: Natural weight of a degree of phase against a dB of magnitude (1 rad ≙ 1 Np).
 PHASE_WEIGHT_DB_PER_DEG = 20.0 / math.log(10.0) * math.pi / 180.0
+#: Design keys that are signed by nature, fitted in linear space ("supply.*": any rail).
+SIGNED_KEYS = frozenset({"mismatch.load", "mismatch.gm", "bias.input_common_mode",
+                         "supply.positive", "supply.negative"})
+#: Default bounds of a free mismatch value (relative, ±20 %).
+MISMATCH_BOUNDS = (-0.2, 0.2)
+#: Two mirrored minima closer than this in Σr²/s² (3σ for one value) leave the sign open.
+SIGN_CHI2 = 9.0
 _PENALTY_DB = 1e3
 _BOUND_TOL = 1e-3   # in ln p: a value within 0.1 % of a bound is "at" it
+
+
+def is_signed_key(key: str) -> bool:
+    """True for a design key that is signed by nature (see :data:`SIGNED_KEYS`)."""
+    return key in SIGNED_KEYS or key.startswith("supply.")
+
+
+def _mirror_key(key: str) -> bool:
+    return key.startswith("mismatch.")
 
 
 class FitError(FreqpairError, ValueError):
@@ -53,9 +86,13 @@ class FitError(FreqpairError, ValueError):
 
 @dataclass(frozen=True)
 class FreeValue:
-    """A design value the fit may change, with its bounds (SI units, both > 0).
+    """A design value the fit may change, with its bounds (SI units).
 
-    ``lower``/``upper`` None means the design value ÷/× :data:`DEFAULT_SPAN`.
+    ``lower``/``upper`` None means the default: for a size the design value
+    ÷/× :data:`DEFAULT_SPAN`; for a mismatch :data:`MISMATCH_BOUNDS`; for
+    another signed value (input common mode, rails) the design value ± its
+    magnitude (bounds required when it is 0). Sizes need 0 < lower < upper;
+    signed values lower < upper.
     """
 
     key: str
@@ -79,11 +116,18 @@ class FittedValue:
     sigma : float or None
         Standard uncertainty of ``estimate`` (linearised; None when infinite).
     relative_sigma : float or None
-        Standard uncertainty of ln(value), i.e. relative [1].
+        Relative standard uncertainty [1]: of ln(value) for a log value,
+        ``sigma/|estimate|`` for a linear one (None when infinite or the
+        estimate is 0).
     lower, upper : float
         Bounds used.
     at_bound : bool
     identifiable : bool
+    space : str
+        ``"log"`` (sizes) or ``"linear"`` (signed values).
+    sign_identifiable : bool
+        False when the data fit +value and −value equally well (a mismatch
+        from magnitude data); always True for a log value.
     """
 
     key: str
@@ -96,11 +140,13 @@ class FittedValue:
     upper: float
     at_bound: bool
     identifiable: bool
+    space: str = "log"
+    sign_identifiable: bool = True
 
     def to_json(self) -> dict:
         return {k: getattr(self, k) for k in ("key", "initial", "fitted", "estimate", "sigma",
                                               "relative_sigma", "lower", "upper", "at_bound",
-                                              "identifiable")}
+                                              "identifiable", "space", "sign_identifiable")}
 
 
 @dataclass(frozen=True)
@@ -115,14 +161,17 @@ class FitResult:
     values : tuple of FittedValue
     rms_residual_db : float
         RMS magnitude residual after the fit [dB].
-    rms_residual_db_initial : float
-        RMS magnitude residual of the starting design [dB].
+    rms_residual_db_initial : float or None
+        RMS magnitude residual of the starting design [dB] (None when the
+        starting design's gain is exactly zero somewhere, e.g. A_cm-dm of a
+        matched pair: no dB value).
     rms_residual_deg : float or None
         RMS phase residual after the fit [deg] (None without phase).
     n_points : int
         Measured frequencies used.
     singular_values : tuple of float
-        Singular values of the Jacobian in ln p [dB per neper], largest first.
+        Singular values of the Jacobian, largest first, per unit change of
+        ln p (log values, dB per neper) or of p / scale (linear values).
     flat_directions : tuple of tuple of str
         For each flat direction of the Jacobian, the keys that move along it.
     warnings : tuple of str
@@ -135,7 +184,7 @@ class FitResult:
     kind: str
     values: tuple
     rms_residual_db: float
-    rms_residual_db_initial: float
+    rms_residual_db_initial: float | None
     rms_residual_deg: float | None
     n_points: int
     singular_values: tuple
@@ -158,7 +207,8 @@ class FitResult:
 def parse_free_spec(spec: str) -> FreeValue:
     """``"tail.capacitance"`` or ``"tail.capacitance=1p:10p"`` → :class:`FreeValue`.
 
-    Bounds are SI numbers (``"1p"``, ``"2.2e-12"``, ``"470k"``), both above 0.
+    Bounds are SI numbers (``"1p"``, ``"2.2e-12"``, ``"470k"``); a signed value
+    may have negative ones (``"mismatch.load=-0.05:0.05"``).
     """
     key, eq, rng = spec.partition("=")
     key = key.strip()
@@ -187,7 +237,9 @@ def parse_free_spec(spec: str) -> FreeValue:
     return FreeValue(key, bounds[0], bounds[1])
 
 
-def _prepare(design: Design, free) -> list[tuple[str, float, float, float]]:
+def _prepare(design: Design, free) -> list[tuple[str, float, float, float, bool]]:
+    """Free values → ``(key, design value, lower, upper, linear)``."""
+    from .design import DesignError
     out = []
     seen = set()
     for item in free:
@@ -200,18 +252,59 @@ def _prepare(design: Design, free) -> list[tuple[str, float, float, float]]:
             raise FitError(f"{fv.key} = {value!r}: not a number, cannot be fitted")
         value = float(value)
         lo, hi = fv.lower, fv.upper
-        if lo is None or hi is None:
-            if value <= 0:
-                raise FitError(f"{fv.key} = {value:g}: zero in the design, so give bounds, "
-                               f"e.g. {fv.key}=LOW:HIGH")
-            lo, hi = value / DEFAULT_SPAN, value * DEFAULT_SPAN
-        if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi):
-            raise FitError(f"{fv.key}: bounds {lo:g}:{hi:g} must satisfy 0 < low < high "
-                           "(the fit works on logarithms)")
-        out.append((fv.key, value, lo, hi))
+        given = [b for b in (lo, hi) if b is not None]
+        linear = is_signed_key(fv.key) or value < 0 or any(b < 0 for b in given)
+        if linear:
+            if lo is None or hi is None:
+                if _mirror_key(fv.key):
+                    lo, hi = MISMATCH_BOUNDS
+                elif value != 0:
+                    lo, hi = value - abs(value), value + abs(value)
+                else:
+                    raise FitError(f"{fv.key} = 0: give bounds for this signed value, "
+                                   f"e.g. {fv.key}=-1:1")
+            if not (math.isfinite(lo) and math.isfinite(hi) and lo < hi):
+                raise FitError(f"{fv.key}: bounds {lo:g}:{hi:g} must satisfy low < high")
+            for bound in (lo, hi):
+                try:
+                    replace_value(design, fv.key, bound)
+                except DesignError as exc:
+                    raise FitError(f"{fv.key}: bound {bound:g} is not allowed ({exc})") from None
+        else:
+            if lo is None or hi is None:
+                if value <= 0:
+                    raise FitError(f"{fv.key} = {value:g}: zero in the design, so give bounds, "
+                                   f"e.g. {fv.key}=LOW:HIGH")
+                lo, hi = value / DEFAULT_SPAN, value * DEFAULT_SPAN
+            if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi):
+                raise FitError(f"{fv.key}: bounds {lo:g}:{hi:g} must satisfy 0 < low < high "
+                               "(the fit works on logarithms)")
+        out.append((fv.key, value, lo, hi, linear))
     if not out:
         raise FitError("no free values: name at least one, e.g. tail.capacitance")
     return out
+
+
+def _starts(spec, x_base, lo, hi) -> tuple[list[np.ndarray], list[int]]:
+    """Starting points: the design's, and its mirror (mismatch signs flipped) when allowed.
+
+    Returns the starts and the indices of the mirrored (mismatch) values.
+    """
+    x = x_base.copy()
+    mirror = [k for k, (key, _, _, _, linear) in enumerate(spec) if linear and _mirror_key(key)]
+    if not mirror or any(not (lo[k] < 0 < hi[k]) for k in mirror):
+        for k, (key, init, _, _, linear) in enumerate(spec):
+            if linear and init == 0 and _mirror_key(key):   # δ = 0 may null the gain
+                x[k] = 0.5 * (lo[k] + hi[k]) if lo[k] + hi[k] != 0 else 0.25 * hi[k]
+        return [x], []
+    for k in mirror:
+        init = spec[k][1]
+        reach = min(-lo[k], hi[k])
+        s = abs(init) if 0 < abs(init) <= reach else 0.25 * reach
+        x[k] = s if init >= 0 else -s
+    y = x.copy()
+    y[mirror] = -x[mirror]
+    return [x, y], mirror
 
 
 def fit_design(design: Design, measurement: Measurement, free, *, use_phase: bool = True,
@@ -225,7 +318,8 @@ def fit_design(design: Design, measurement: Measurement, free, *, use_phase: boo
     measurement : Measurement
         Measured magnitude [dB] and optional phase [deg] of ``measurement.kind``.
     free : sequence of FreeValue or str
-        The values to fit, e.g. ``["tail.capacitance=1p:10p", "tail.resistance"]``.
+        The values to fit, e.g. ``["tail.capacitance=1p:10p", "tail.resistance",
+        "mismatch.load=-0.05:0.05"]``.
     use_phase : bool
         Fit the phase too when the measurement has it.
     phase_weight : float
@@ -245,22 +339,31 @@ def fit_design(design: Design, measurement: Measurement, free, *, use_phase: boo
 
     spec = _prepare(design, free)
     keys = [k for k, *_ in spec]
-    init = np.array([v for _, v, _, _ in spec])
-    lo = np.log([lo for *_, lo, _ in spec])
-    hi = np.log([hi for *_, hi in spec])
-    x0 = np.clip(np.where(init > 0, np.log(np.where(init > 0, init, 1.0)), 0.5 * (lo + hi)),
-                 lo, hi)
+    init = np.array([v for _, v, _, _, _ in spec])
+    linear = np.array([lin for *_, lin in spec], dtype=bool)
+    lo_v = np.array([b for _, _, b, _, _ in spec])
+    hi_v = np.array([b for _, _, _, b, _ in spec])
+    lo = np.where(linear, lo_v, np.log(np.where(linear, 1.0, lo_v)))
+    hi = np.where(linear, hi_v, np.log(np.where(linear, 1.0, hi_v)))
+    safe_init = np.where(init > 0, init, 1.0)
+    x_base = np.where(linear, init, np.where(init > 0, np.log(safe_init), 0.5 * (lo + hi)))
+    x_base = np.clip(x_base, lo, hi)
+    x_scale = np.where(linear, 0.25 * (hi - lo), 1.0)
     f = measurement.f_hz
     meas_db = measurement.magnitude_db
     phase = measurement.phase_deg if use_phase else None
     m = f.size + (f.size if phase is not None else 0)
-    if m <= len(keys):
-        raise FitError(f"{measurement.origin}: {m} residuals cannot fix {len(keys)} free "
+    n = len(keys)
+    if m <= n:
+        raise FitError(f"{measurement.origin}: {m} residuals cannot fix {n} free "
                        "values; measure more frequencies")
+
+    def values_at(x) -> np.ndarray:
+        return np.where(linear, x, np.exp(np.where(linear, 0.0, x)))
 
     def design_at(x) -> Design:
         d = design
-        for key, value in zip(keys, np.exp(x)):
+        for key, value in zip(keys, values_at(x)):
             d = replace_value(d, key, float(value))
         return d
 
@@ -277,17 +380,51 @@ def fit_design(design: Design, measurement: Measurement, free, *, use_phase: boo
             r = np.concatenate([r, phase_weight * dphi])
         return r
 
-    r0 = residuals(x0, strict=True)   # a bad starting design is the user's error, say so
-    sol = least_squares(residuals, x0, bounds=(lo, hi), method="trf", x_scale=1.0,
-                        diff_step=1e-6, xtol=1e-10, ftol=1e-10, gtol=1e-10, max_nfev=200)
+    starts, mirror = _starts(spec, x_base, lo, hi)
+    # a bad starting design is the user's error, say so — unless only its matched sides
+    # null the gain (A_cm-dm at δ = 0) and the mismatched start is fine
     try:
-        r = residuals(sol.x, strict=True)
-    except FreqpairError as exc:
-        raise FitError(f"fit ended at an infeasible design: {exc}") from None
-    J = sol.jac
-    n = len(keys)
+        r0 = residuals(x_base, strict=True)
+    except FreqpairError:
+        if np.array_equal(starts[0], x_base):
+            raise
+        residuals(starts[0], strict=True)
+        r0 = None
+    sols = []
+    for x0 in starts:
+        sol = least_squares(residuals, x0, bounds=(lo, hi), method="trf", x_scale=x_scale,
+                            diff_step=1e-6, xtol=1e-10, ftol=1e-10, gtol=1e-10, max_nfev=200)
+        try:
+            r = residuals(sol.x, strict=True)
+        except FreqpairError:
+            r = None
+        sols.append((sol, r))
+    feasible = [(sol, r) for sol, r in sols if r is not None]
+    if not feasible:
+        try:
+            residuals(sols[0][0].x, strict=True)
+        except FreqpairError as exc:
+            raise FitError(f"fit ended at an infeasible design: {exc}") from None
+    costs = [float(r @ r) for _, r in feasible]
+    best = int(np.argmin(costs))
+    sign_open = False
+    if len(feasible) == 2:
+        s2_best = max(costs[best] / (m - n), NOISE_FLOOR_DB ** 2)
+        (sa, _), (sb, _) = feasible
+        opposite = all(sa.x[k] * sb.x[k] < 0 for k in mirror)
+        if opposite and abs(costs[0] - costs[1]) / s2_best < SIGN_CHI2:
+            sign_open = True
+            best = 0      # a tie: keep the design's sign (+ when the design has 0)
+    sol, r = feasible[best]
+    nfev = sum(s.nfev for s, _ in sols)
+
+    x = sol.x
+    est = values_at(x)
     s2 = float(r @ r) / (m - n)
     s_eff2 = max(s2, NOISE_FLOOR_DB ** 2)
+    # linear values are judged on their own scale: max(|estimate|, 1 % of the bound span)
+    scale = np.where(linear, np.maximum(np.abs(est), 0.01 * (hi - lo)), 1.0)
+    J = sol.jac * scale
     _, sv, vt = np.linalg.svd(J, full_matrices=False)
     tiny = sv <= 1e-12 * (sv[0] if sv.size and sv[0] > 0 else 1.0)
     with np.errstate(divide="ignore"):
@@ -296,8 +433,8 @@ def fit_design(design: Design, measurement: Measurement, free, *, use_phase: boo
     weights = vt.T ** 2
     with np.errstate(invalid="ignore"):
         var_unit = np.array([np.sum(np.where(w > 1e-24, w * inv_sv2, 0.0)) for w in weights])
-    rel_sigma = np.sqrt(s2 * var_unit)
-    rel_sigma_floor = np.sqrt(s_eff2 * var_unit)
+    scaled_sigma = np.sqrt(s2 * var_unit)           # in ln p, or in units of `scale`
+    scaled_sigma_floor = np.sqrt(s_eff2 * var_unit)
 
     flat = []
     for i, sval in enumerate(sv):
@@ -305,43 +442,68 @@ def fit_design(design: Design, measurement: Measurement, free, *, use_phase: boo
             members = tuple(keys[k] for k in np.nonzero(np.abs(vt[i]) > 0.3)[0])
             flat.append(members)
 
-    est = np.exp(sol.x)
     values, warnings = [], []
     d_out = design
     for k, key in enumerate(keys):
-        at_bound = bool(sol.x[k] - lo[k] < _BOUND_TOL or hi[k] - sol.x[k] < _BOUND_TOL)
-        ident = bool(math.isfinite(rel_sigma_floor[k]) and rel_sigma_floor[k] <= MAX_RELATIVE_SIGMA)
-        rs = float(rel_sigma[k]) if math.isfinite(rel_sigma[k]) else None
-        sig = float(est[k] * rs) if rs is not None else None
+        at_lo, at_hi = x[k] - lo[k], hi[k] - x[k]
+        tol = _BOUND_TOL * (hi[k] - lo[k]) if linear[k] else _BOUND_TOL
+        at_bound = bool(at_lo < tol or at_hi < tol)
+        ident = bool(math.isfinite(scaled_sigma_floor[k])
+                     and scaled_sigma_floor[k] <= MAX_RELATIVE_SIGMA)
+        if not math.isfinite(scaled_sigma[k]):
+            sig = rs = None
+        elif linear[k]:
+            sig = float(scale[k] * scaled_sigma[k])
+            rs = sig / abs(est[k]) if est[k] != 0 else None
+        else:
+            rs = float(scaled_sigma[k])
+            sig = float(est[k] * rs)
         fitted = float(est[k]) if ident else float(init[k])
         if not ident:
+            judged = scaled_sigma_floor[k]
             warnings.append(f"{key}: not identifiable from this measurement (the data hardly "
                             f"change with it; relative uncertainty "
-                            f"{'∞' if rs is None else f'{rel_sigma_floor[k]:.0%}'}); "
+                            f"{'∞' if not math.isfinite(judged) else f'{judged:.0%}'}); "
                             f"kept at the design value {init[k]:.4g}")
         elif at_bound:
-            side = "lower" if sol.x[k] - lo[k] < _BOUND_TOL else "upper"
+            side = "lower" if at_lo < tol else "upper"
             warnings.append(f"{key}: ended at its {side} bound {est[k]:.4g}; widen the bounds "
                             "(the uncertainty shown assumes it is free)")
+        sign_ok = not (sign_open and k in mirror)
+        if not sign_ok and ident:
+            warnings.append(f"{key}: sign not identifiable from magnitude data "
+                            f"(+{abs(est[k]):.4g} and −{abs(est[k]):.4g} fit equally well: "
+                            "swapping the sides gives the same magnitude); phase data needed; "
+                            f"kept the {'design' if init[k] != 0 else 'positive'} sign")
         if ident:
             d_out = replace_value(d_out, key, fitted)
         values.append(FittedValue(key, float(init[k]), fitted, float(est[k]), sig, rs,
-                                  float(math.exp(lo[k])), float(math.exp(hi[k])), at_bound,
-                                  ident))
+                                  float(lo_v[k]), float(hi_v[k]), at_bound, ident,
+                                  "linear" if linear[k] else "log", sign_ok))
     for members in flat:
         if len(members) > 1:
             warnings.append("flat direction: " + ", ".join(members) +
                             " trade off against each other (only a combination is seen)")
-    if phase is not None and np.median(np.abs(r0[f.size:] / phase_weight)) > 150.0:
-        warnings.append("the measured phase is about 180° from the model's at the start: "
-                        "check the sign convention (DESIGN.md §2) or fit without phase")
+    if phase is not None:
+        # judged at the best of the starts: a free mismatch may flip the sign itself
+        off = []
+        for x0 in starts:
+            try:
+                rs0 = residuals(x0, strict=True)
+            except FreqpairError:
+                continue
+            off.append(np.median(np.abs(rs0[f.size:] / phase_weight)))
+        if off and min(off) > 150.0:
+            warnings.append("the measured phase is about 180° from the model's at the start: "
+                            "check the sign convention (DESIGN.md §2) or fit without phase")
     if not sol.success:
         warnings.append(f"optimiser did not converge: {sol.message}")
     nf = f.size
     rms_deg = None
     if phase is not None:
         rms_deg = float(np.sqrt(np.mean((r[nf:] / phase_weight) ** 2)))
+    rms0 = None if r0 is None else float(np.sqrt(np.mean(r0[:nf] ** 2)))
     return FitResult(d_out, measurement.kind, tuple(values),
-                     float(np.sqrt(np.mean(r[:nf] ** 2))), float(np.sqrt(np.mean(r0[:nf] ** 2))),
+                     float(np.sqrt(np.mean(r[:nf] ** 2))), rms0,
                      rms_deg, int(nf), tuple(float(v) for v in sv), tuple(flat), tuple(warnings),
-                     int(sol.nfev))
+                     int(nfev))
