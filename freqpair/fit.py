@@ -471,10 +471,10 @@ def fit_design(design: Design, measurement: Measurement, free, *, use_phase: boo
                             "(the uncertainty shown assumes it is free)")
         sign_ok = not (sign_open and k in mirror)
         if not sign_ok and ident:
-            warnings.append(f"{key}: sign not identifiable from magnitude data "
-                            f"(+{abs(est[k]):.4g} and −{abs(est[k]):.4g} fit equally well: "
-                            "swapping the sides gives the same magnitude); phase data needed; "
-                            f"kept the {'design' if init[k] != 0 else 'positive'} sign")
+            warnings.append(f"{key}: sign not identifiable from magnitude data; phase data "
+                            f"needed (+{abs(est[k]):.4g} and −{abs(est[k]):.4g} fit equally "
+                            "well: swapping the sides gives the same magnitude); kept the "
+                            f"{'design' if init[k] != 0 else 'positive'} sign")
         if ident:
             d_out = replace_value(d_out, key, fitted)
         values.append(FittedValue(key, float(init[k]), fitted, float(est[k]), sig, rs,
