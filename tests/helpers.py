@@ -49,3 +49,18 @@ def run_cli(*args, cwd=ROOT, timeout=60):
     return subprocess.run([sys.executable, "-m", "freqpair.cli", *map(str, args)],
                           capture_output=True, text=True, cwd=cwd, timeout=timeout,
                           env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
+
+
+def synthetic_measurement(design, kind, f_hz, noise_db=0.0, noise_deg=None, seed=0):
+    """The exact model of ``design`` at ``f_hz`` plus seeded noise (the fit tests' oracle):
+    magnitude [dB] with σ = ``noise_db``, phase [deg] with σ = ``noise_deg`` (None: no phase)."""
+    import numpy as np
+    from freqpair.measured import Measurement, model_response
+    from freqpair.responses import StageResponses
+    h = model_response(StageResponses(freqpair.build_stage(design)), kind, f_hz)
+    rng = np.random.default_rng(seed)
+    mag = 20 * np.log10(np.abs(h)) + rng.normal(0.0, noise_db, f_hz.size)
+    phase = None
+    if noise_deg is not None:
+        phase = np.degrees(np.angle(h)) + rng.normal(0.0, noise_deg, f_hz.size)
+    return Measurement(kind, f_hz, mag, phase)

@@ -18,7 +18,7 @@ from freqpair.design import replace_value
 from freqpair.fit import FitError, FreeValue, fit_design, parse_free_spec
 from freqpair.measured import Measurement, model_response
 from freqpair.responses import StageResponses
-from helpers import run_cli
+from helpers import run_cli, synthetic_measurement
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent
 DESIGN_PATH = ROOT / "examples" / "npn_resistor_rc_tail.toml"
@@ -38,13 +38,7 @@ def _built(design, values):
 
 def _synthetic(design, kind, f, noise_db=0.0, noise_deg=None, seed=0, values=HIDDEN):
     """The exact model at known values plus seeded noise (the test oracle)."""
-    h = model_response(StageResponses(freqpair.build_stage(_built(design, values))), kind, f)
-    rng = np.random.default_rng(seed)
-    mag = 20 * np.log10(np.abs(h)) + rng.normal(0.0, noise_db, f.size)
-    phase = None
-    if noise_deg is not None:
-        phase = np.degrees(np.angle(h)) + rng.normal(0.0, noise_deg, f.size)
-    return Measurement(kind, f, mag, phase)
+    return synthetic_measurement(_built(design, values), kind, f, noise_db, noise_deg, seed)
 
 
 CMRR_F = np.logspace(3, np.log10(50e6), 40)

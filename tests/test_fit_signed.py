@@ -19,7 +19,7 @@ from freqpair.fit import (MISMATCH_BOUNDS, FitError, fit_design, is_signed_key,
                           parse_free_spec)
 from freqpair.measured import Measurement, model_response
 from freqpair.responses import StageResponses
-from helpers import run_cli
+from helpers import run_cli, synthetic_measurement
 from conftest import ROOT
 
 DESIGN_PATH = ROOT / "examples" / "npn_mismatched_pair.toml"
@@ -37,13 +37,7 @@ def matched():
 def _synthetic(design, kind, delta=TRUE_DELTA, noise_db=0.0, noise_deg=None, seed=0):
     """The exact model with mismatch.load = delta, plus seeded noise (the test oracle)."""
     truth = replace_value(design, "mismatch.load", delta)
-    h = model_response(StageResponses(freqpair.build_stage(truth)), kind, F_HZ)
-    rng = np.random.default_rng(seed)
-    mag = 20 * np.log10(np.abs(h)) + rng.normal(0.0, noise_db, F_HZ.size)
-    phase = None
-    if noise_deg is not None:
-        phase = np.degrees(np.angle(h)) + rng.normal(0.0, noise_deg, F_HZ.size)
-    return Measurement(kind, F_HZ, mag, phase)
+    return synthetic_measurement(truth, kind, F_HZ, noise_db, noise_deg, seed)
 
 
 def test_load_mismatch_from_acm_dm_with_phase_within_10_percent_and_3_sigma(matched):
