@@ -15,7 +15,7 @@ import time
 from bokeh.document import Document
 
 from freqpair.app.view import make_doc
-from freqpair.cli_app import limit_blas_threads
+from freqpair.cli.app import limit_blas_threads
 
 GOAL_MS = 30.0
 

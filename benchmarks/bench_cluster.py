@@ -10,7 +10,7 @@ frequencies) on the local executor and on LocalClusters of 1 … --workers
 worker processes (1 thread each), prints samples/s side by side with the
 scaling against the local run, and checks that every run gives bit-identical
 results. Cluster start-up is timed apart from the run. Workers get
-``freqpair.executors.WORKER_ENV`` (a fixed glibc mmap threshold); the last row
+``freqpair.studies.executors.WORKER_ENV`` (a fixed glibc mmap threshold); the last row
 repeats the largest cluster with Dask's default worker environment. A LocalCluster shares
 this machine's cores, so its scaling is bounded by them (and by whatever else
 runs); on a real cluster pass ``executor="tcp://scheduler:8786"`` instead.
@@ -25,8 +25,8 @@ import time
 
 import numpy as np
 
-from freqpair.executors import DaskExecutor
-from freqpair.montecarlo import run_montecarlo
+from freqpair.studies.executors import DaskExecutor
+from freqpair.studies.montecarlo import run_montecarlo
 
 sys.path.insert(0, str(pathlib.Path(__file__).resolve().parent))
 from bench_montecarlo import mismatch_setup  # noqa: E402
@@ -49,7 +49,7 @@ def main(argv=None) -> dict:
     args = ap.parse_args(argv)
     import dask
     from distributed import Client, LocalCluster
-    from freqpair.executors import WORKER_ENV
+    from freqpair.studies.executors import WORKER_ENV
 
     design, spec, f = mismatch_setup(args.points)
     print(f"Monte Carlo: {args.samples} samples x {f.size} frequencies, built-in example, "

@@ -25,12 +25,12 @@ import time
 
 import numpy as np
 
-from freqpair.analysis import analyze
-from freqpair.blas_threads import single_blas_thread
-from freqpair.design import BUILTIN_EXAMPLE, design_from_text
-from freqpair.network import FrequencySolver
-from freqpair.responses import StageResponses
-from freqpair.stage import build_stage
+from freqpair.analysis.result import analyze
+from freqpair.circuit.blas_threads import single_blas_thread
+from freqpair.design.files import BUILTIN_EXAMPLE, design_from_text
+from freqpair.circuit.network import FrequencySolver
+from freqpair.analysis.responses import StageResponses
+from freqpair.circuit.stage import build_stage
 
 
 def timings_ms(fn, repeat: int) -> tuple[float, float]:

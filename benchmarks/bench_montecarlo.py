@@ -19,8 +19,13 @@ import time
 import tracemalloc
 
 import freqpair
-from freqpair.design import BUILTIN_EXAMPLE
-from freqpair.montecarlo import MonteCarloSpec, default_grid, run_montecarlo, sampled_design
+from freqpair.design.files import BUILTIN_EXAMPLE
+from freqpair.studies.montecarlo import (
+    MonteCarloSpec,
+    default_grid,
+    run_montecarlo,
+    sampled_design,
+)
 
 #: The performance target: 10,000 samples × 200 frequencies [s].
 TARGET_S = 2.0

@@ -32,9 +32,10 @@ SEED = 20240611
 def make(path: Path = OUT, seed: int = SEED) -> Path:
     """Write the synthetic CMRR measurement to ``path`` and return it."""
     import freqpair
-    from freqpair.design import atomic_write_text, replace_value
-    from freqpair.measured import model_response
-    from freqpair.responses import StageResponses
+    from freqpair.design.files import atomic_write_text
+    from freqpair.design.keys import replace_value
+    from freqpair.studies.measured import model_response
+    from freqpair.analysis.responses import StageResponses
 
     built = freqpair.load_design(DESIGN)
     for key, value in HIDDEN.items():

@@ -45,7 +45,7 @@ def screenshot(html_path: pathlib.Path, png_path: pathlib.Path, width=1200, heig
 
 def main(names=None) -> int:
     import freqpair
-    from freqpair.report import write_report
+    from freqpair.views.report import write_report
     out = HERE.parent / "docs" / "img"
     out.mkdir(parents=True, exist_ok=True)
     with tempfile.TemporaryDirectory() as tmp:

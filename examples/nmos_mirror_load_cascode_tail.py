@@ -18,7 +18,7 @@ sys.path.insert(0, str(HERE))
 import walkthrough  # noqa: E402
 
 import freqpair  # noqa: E402
-from freqpair.targets import metric_value  # noqa: E402
+from freqpair.studies.targets import metric_value  # noqa: E402
 
 DESIGN = HERE / "nmos_mirror_load_cascode_tail.toml"
 PROBE_HZ = 1e6      # a frequency to read the CMRR at, well above both corners

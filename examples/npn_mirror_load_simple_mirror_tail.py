@@ -21,8 +21,8 @@ sys.path.insert(0, str(HERE))
 import walkthrough  # noqa: E402
 
 import freqpair  # noqa: E402
-from freqpair.hand import hand_table  # noqa: E402
-from freqpair.poles import response_zpk  # noqa: E402
+from freqpair.analysis.hand import hand_table  # noqa: E402
+from freqpair.analysis.poles import response_zpk  # noqa: E402
 
 DESIGN = HERE / "npn_mirror_load_simple_mirror_tail.toml"
 PNP_FT_HZ = (5e6, 20e6, 100e6)

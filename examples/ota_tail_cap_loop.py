@@ -19,8 +19,8 @@ sys.path.insert(0, str(HERE))
 import walkthrough  # noqa: E402
 
 import freqpair  # noqa: E402
-from freqpair.compensation import phase_margin_of  # noqa: E402
-from freqpair.sweep import SweepAxis, sweep  # noqa: E402
+from freqpair.analysis.compensation import phase_margin_of  # noqa: E402
+from freqpair.studies.sweep import SweepAxis, sweep  # noqa: E402
 
 DESIGN = HERE / "ota_tail_cap_loop.toml"
 TAIL_CAPACITANCES_F = (0.0, 1e-12, 2e-12, 4e-12, 8e-12, 16e-12, 32e-12)

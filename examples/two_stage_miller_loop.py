@@ -19,8 +19,8 @@ sys.path.insert(0, str(HERE))
 import walkthrough  # noqa: E402
 
 import freqpair  # noqa: E402
-from freqpair.compensation import smallest_miller_cap  # noqa: E402
-from freqpair.loop import loop_analysis, step_response  # noqa: E402
+from freqpair.analysis.compensation import smallest_miller_cap  # noqa: E402
+from freqpair.analysis.loop import loop_analysis, step_response  # noqa: E402
 
 DESIGN = HERE / "two_stage_miller_loop.toml"
 TARGET_PM_DEG = 60.0

@@ -32,7 +32,7 @@ def print_table(headers, widths, rows) -> None:
 
 def transfer_function(result):
     """The main differential gain as a python-control TransferFunction (s in rad/s)."""
-    from freqpair.poles import response_zpk
+    from freqpair.analysis.poles import response_zpk
     return response_zpk(result, result.primary).transfer_function()
 
 
@@ -56,7 +56,7 @@ def run(design_path, out_dir=None) -> dict:
     from bokeh.io import save
     from bokeh.layouts import column
     from bokeh.resources import INLINE
-    from freqpair.report_plots import bode_figures
+    from freqpair.views.report_plots import bode_figures
     mag, phase = bode_figures(result, names=[result.primary])
     mag.title.text = f"{design_path.stem}: {mag.title.text}"   # figures are restylable
     mag.height = 260
@@ -65,7 +65,7 @@ def run(design_path, out_dir=None) -> dict:
          title=f"{design_path.stem} Bode plot")
 
     report_path = out_dir / f"{design_path.stem}_report.html"
-    from freqpair.report import write_report
+    from freqpair.views.report import write_report
     write_report(result, report_path)
     print(f"wrote {bode_path} and {report_path}")
     return {"bode": bode_path, "report": report_path, "tf_error": worst,

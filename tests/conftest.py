@@ -3,7 +3,7 @@ import pathlib
 import pytest
 
 import freqpair
-from freqpair.design import BUILTIN_EXAMPLE
+from freqpair.design.files import BUILTIN_EXAMPLE
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent
 EXAMPLES = sorted((ROOT / "examples").glob("*.toml"))

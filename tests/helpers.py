@@ -55,8 +55,8 @@ def synthetic_measurement(design, kind, f_hz, noise_db=0.0, noise_deg=None, seed
     """The exact model of ``design`` at ``f_hz`` plus seeded noise (the fit tests' oracle):
     magnitude [dB] with σ = ``noise_db``, phase [deg] with σ = ``noise_deg`` (None: no phase)."""
     import numpy as np
-    from freqpair.measured import Measurement, model_response
-    from freqpair.responses import StageResponses
+    from freqpair.studies.measured import Measurement, model_response
+    from freqpair.analysis.responses import StageResponses
     h = model_response(StageResponses(freqpair.build_stage(design)), kind, f_hz)
     rng = np.random.default_rng(seed)
     mag = 20 * np.log10(np.abs(h)) + rng.normal(0.0, noise_db, f_hz.size)

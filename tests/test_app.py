@@ -15,11 +15,11 @@ import scipy.linalg
 from bokeh.document import Document
 
 import freqpair
-import freqpair.measured
+import freqpair.studies.measured
 from freqpair.app import app_dir
 from freqpair.app.view import MAX_FILE_BYTES, make_doc
-from freqpair.design import BUILTIN_EXAMPLE
-from freqpair.poles import response_zpk
+from freqpair.design.files import BUILTIN_EXAMPLE
+from freqpair.analysis.poles import response_zpk
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -426,7 +426,7 @@ def test_loaded_cmrr_measurement_is_drawn_over_the_cmrr_plot_with_its_residual(b
     w(doc, "measured_kind").value = "cmrr"
     assert ex.measured.load(_b64(MEASURED), MEASURED.name), ex.message_text
     src = w(doc, "measured_source")
-    meas = freqpair.measured.read_measurement(MEASURED, "cmrr")
+    meas = freqpair.studies.measured.read_measurement(MEASURED, "cmrr")
     # oracle: the CSV file read back by the csv module (common practice): first/last rows
     import csv
     rows = [r for r in csv.reader(l for l in MEASURED.read_text().splitlines()
@@ -434,7 +434,7 @@ def test_loaded_cmrr_measurement_is_drawn_over_the_cmrr_plot_with_its_residual(b
     assert len(src.data["f_hz"]) == len(rows) == len(meas)
     assert src.data["f_hz"][0] == float(rows[0][0]) and src.data["f_hz"][-1] == float(rows[-1][0])
     np.testing.assert_array_equal(src.data["measured_db"], [float(r[1]) for r in rows])
-    ov = freqpair.measured.overlay(freqpair.analyze(ex.design), meas)
+    ov = freqpair.studies.measured.overlay(freqpair.analyze(ex.design), meas)
     np.testing.assert_allclose(src.data["residual_db"], ov.measured_db - ov.model_db,
                                rtol=0, atol=1e-12)
     # oracle: numpy.linalg.solve of G + j2πf·C: the model column is the single-ended CMRR

@@ -10,8 +10,8 @@ from pathlib import Path
 import pytest
 
 import freqpair
-from freqpair.design import BUILTIN_EXAMPLE
-from freqpair.measured import read_measurement
+from freqpair.design.files import BUILTIN_EXAMPLE
+from freqpair.studies.measured import read_measurement
 
 from browser_util import (console_errors, free_port, make_driver, stop_server,
                           wait_for_bokeh, wait_until)

@@ -14,7 +14,7 @@ after the change is answered after every patch the change caused).
 Checks: no session disconnects or shows an internal error; every change that
 is invalid by construction is refused with the one-line message; the server
 logs no error; its resident memory stays under a stated bound; each session's
-final curves equal :func:`freqpair.explore.explore` on the design the session
+final curves equal :func:`freqpair.views.explore.explore` on the design the session
 should hold (rebuilt here from the changes the server accepted). Latency
 percentiles go to ``test-artifacts/app_load.txt`` and the terminal.
 """
@@ -34,10 +34,17 @@ import numpy as np
 import pytest
 
 from freqpair.app.view import MAX_FILE_BYTES, N_POINTS
-from freqpair.design import BUILTIN_EXAMPLE, design_from_text, design_to_dict, parse_design
-from freqpair.design import replace_value
-from freqpair.errors import FreqpairError
-from freqpair.explore import KIND_CHOICES, editable_values, explore, explore_grid, switch_kind
+from freqpair.design.files import BUILTIN_EXAMPLE, design_from_text
+from freqpair.design.schema import design_to_dict, parse_design
+from freqpair.design.keys import replace_value
+from freqpair.design.errors import FreqpairError
+from freqpair.views.explore import (
+    KIND_CHOICES,
+    editable_values,
+    explore,
+    explore_grid,
+    switch_kind,
+)
 
 from browser_util import free_port, stop_server
 
@@ -405,7 +412,7 @@ def test_twenty_sessions_of_random_changes_stay_alive_bounded_and_exact(server, 
     log = server["log"].read_text(errors="replace")
     assert "ERROR" not in log and "Traceback" not in log, log[-2000:]
 
-    # oracle: freqpair.explore.explore (the library) on each session's final design
+    # oracle: freqpair.views.explore.explore (the library) on each session's final design
     for i, r in out.items():
         m = r["mirror"]
         want = explore(m.design, explore_grid(m.design, N_POINTS), target_db=m.target_at_last_good)

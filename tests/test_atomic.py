@@ -6,10 +6,14 @@ import pathlib
 import pytest
 
 from freqpair import analyze, design_from_text, load_design, save_design
-from freqpair.design import (BUILTIN_EXAMPLE, atomic_write_text, load_design_table,
-                             save_design_table)
-from freqpair.errors import DesignError
-from freqpair.export import write_curves_csv
+from freqpair.design.files import (
+    BUILTIN_EXAMPLE,
+    atomic_write_text,
+    load_design_table,
+    save_design_table,
+)
+from freqpair.design.errors import DesignError
+from freqpair.views.export import write_curves_csv
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent
 WRITERS = {"open", "write_text", "write_bytes", "savefig", "dump", "save", "output_file"}

@@ -46,7 +46,7 @@ def run_in_process(*args):
     import contextlib
     import io
 
-    from freqpair.cli import main
+    from freqpair.cli.main import main
     out, err = io.StringIO(), io.StringIO()
     with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
         code = main([str(a) for a in args])

@@ -16,12 +16,18 @@ import numpy as np
 import pytest
 
 import freqpair
-from freqpair.design import BUILTIN_EXAMPLE
-from freqpair.executors import (INSTALL_HINT, ClusterError, DaskExecutor, LocalExecutor,
-                                get_executor)
-from freqpair.montecarlo import MonteCarloSpec, run_montecarlo
-from freqpair.sweep import SweepAxis, sweep
-from freqpair.target_grid import solve_target_grid
+import freqpair.studies.targets
+from freqpair.design.files import BUILTIN_EXAMPLE
+from freqpair.studies.executors import (
+    INSTALL_HINT,
+    ClusterError,
+    DaskExecutor,
+    LocalExecutor,
+    get_executor,
+)
+from freqpair.studies.montecarlo import MonteCarloSpec, run_montecarlo
+from freqpair.studies.sweep import SweepAxis, sweep
+from freqpair.studies.target_grid import solve_target_grid
 
 SPEC = MonteCarloSpec.from_dict({"mismatch.load": ("normal", 0.01),
                                  "mismatch.gm": ("normal", 0.01),
@@ -61,7 +67,7 @@ def test_missing_dask_is_one_line_naming_the_extra(monkeypatch):
 
 def test_cli_without_dask_prints_one_line_and_exits_nonzero():
     # common practice: CLI error contract — one line on stderr, nothing on stdout
-    code = ("import sys; sys.modules['distributed'] = None; from freqpair.cli import main; "
+    code = ("import sys; sys.modules['distributed'] = None; from freqpair.cli.main import main; "
             "sys.exit(main(sys.argv[1:]))")
     r = subprocess.run([sys.executable, "-c", code, "montecarlo", EXAMPLE, "--spread",
                         "mismatch.load=normal:1%", "-n", "10", "--scheduler",
@@ -72,7 +78,7 @@ def test_cli_without_dask_prints_one_line_and_exits_nonzero():
 
 
 def test_cli_target_over_a_grid_gives_one_row_per_point_matching_solve_target(design):
-    # oracle: freqpair.targets.solve_target at each grid point (single solves)
+    # oracle: freqpair.studies.targets.solve_target at each grid point (single solves)
     r = subprocess.run([sys.executable, "-m", "freqpair.cli", "target", EXAMPLE, "--vary",
                         "tail.capacitance=0.1p:100p", "--metric", "cmrr_se_db", "--at", "100k",
                         "--min", "60", "--over", "bias.tail_current=1m,2m", "--json"],
@@ -81,8 +87,8 @@ def test_cli_target_over_a_grid_gives_one_row_per_point_matching_solve_target(de
     rows = json.loads(r.stdout)["rows"]
     base = freqpair.load_design(EXAMPLE)
     for row, tail in zip(rows, (1e-3, 2e-3)):
-        one = freqpair.targets.solve_target(
-            freqpair.design.replace_value(base, "bias.tail_current", tail), "tail.capacitance",
+        one = freqpair.studies.targets.solve_target(
+            freqpair.replace_value(base, "bias.tail_current", tail), "tail.capacitance",
             "cmrr_se_db", 60.0, "min", (1e-13, 1e-10), at_hz=1e5)
         assert row["bias.tail_current"] == tail and row["tail.capacitance"] == one.value
 
@@ -174,8 +180,8 @@ def test_target_over_a_grid_on_the_cluster_equals_the_local_solve(cluster, desig
     a = solve_target_grid(*args)
     b = solve_target_grid(*args, executor=DaskExecutor(cluster[1]))
     assert a.to_json_text() == b.to_json_text()
-    one = freqpair.targets.solve_target(
-        freqpair.design.replace_value(design, "bias.tail_current", 2e-3), "tail.capacitance",
+    one = freqpair.studies.targets.solve_target(
+        freqpair.replace_value(design, "bias.tail_current", 2e-3), "tail.capacitance",
         "cmrr_se_db", 80.0, "min", (1e-13, 1e-10), at_hz=1e5)
     assert b.value[1] == one.value
 

@@ -9,8 +9,8 @@ import sys
 import pytest
 
 import freqpair
-from freqpair.compare import RELATIVE_TOLERANCE, compare_html, compare_table
-from freqpair.report import format_metric
+from freqpair.views.compare import RELATIVE_TOLERANCE, compare_html, compare_table
+from freqpair.analysis.summary import format_metric
 from test_report_support import check_html
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent

@@ -9,11 +9,15 @@ import numpy as np
 import pytest
 
 import freqpair
-from freqpair.compensation import (CompensationError, feedback_factor_limit,
-                                   nulling_resistor_for, smallest_miller_cap)
-from freqpair.design import replace_value
-from freqpair.errors import FreqpairError
-from freqpair.loop import loop_model
+from freqpair.analysis.compensation import (
+    CompensationError,
+    feedback_factor_limit,
+    nulling_resistor_for,
+    smallest_miller_cap,
+)
+from freqpair.design.keys import replace_value
+from freqpair.design.errors import FreqpairError
+from freqpair.analysis.loop import loop_model
 
 from conftest import ROOT
 

@@ -14,10 +14,11 @@ import pytest
 import scipy.constants as sc
 
 from conftest import EXAMPLES
-from freqpair.analysis import analyze
-from freqpair.design import load_design, parse_design
-from freqpair.errors import BiasError
-from freqpair.stage import build_stage
+from freqpair.analysis.result import analyze
+from freqpair.design.files import load_design
+from freqpair.design.schema import parse_design
+from freqpair.design.errors import BiasError
+from freqpair.circuit.stage import build_stage
 
 VT = sc.k * 300.0 / sc.e        # CODATA (scipy.constants), DESIGN.md §2
 I_TAIL = 1e-3
@@ -342,7 +343,7 @@ LOOP_KEYS = {"phase_margin_deg", "gain_margin_db", "crossover_hz"}
 
 @pytest.mark.parametrize("path", EXAMPLES, ids=[p.stem for p in EXAMPLES])
 def test_every_example_prints_exactly_one_json_object_with_the_keys_of_its_kind(path):
-    from freqpair.cli import main
+    from freqpair.cli.main import main
     out, err = io.StringIO(), io.StringIO()
     with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
         code = main(["analyze", str(path), "--json"])

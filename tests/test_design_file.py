@@ -9,8 +9,8 @@ import math
 import pytest
 
 import freqpair
-from freqpair.design import design_to_dict, parse_design
-from freqpair.errors import BiasError, DesignError, FreqpairError
+from freqpair.design.schema import design_to_dict, parse_design
+from freqpair.design.errors import BiasError, DesignError, FreqpairError
 
 BASE = {
     "supply": {"positive": 12, "negative": -12},

@@ -8,10 +8,16 @@ import numpy as np
 import pytest
 
 import freqpair
-from freqpair.design import BUILTIN_EXAMPLE
-from freqpair.errors import DesignError
-from freqpair.explore import (CURVE_COLUMNS, curves_csv, editable_values, explore,
-                              explore_grid, switch_kind)
+from freqpair.design.files import BUILTIN_EXAMPLE
+from freqpair.design.errors import DesignError
+from freqpair.views.explore import (
+    CURVE_COLUMNS,
+    curves_csv,
+    editable_values,
+    explore,
+    explore_grid,
+    switch_kind,
+)
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 
@@ -110,7 +116,7 @@ def test_editable_values_text_parses_back_to_the_value(design):
             continue
         # oracle: quantiphy reading the shown engineering text (DESIGN.md §3 syntax)
         got = freqpair.replace_value(design, v.key, v.text)
-        assert freqpair.design.get_value(got, v.key) == pytest.approx(v.value, rel=1e-6)
+        assert freqpair.get_value(got, v.key) == pytest.approx(v.value, rel=1e-6)
         assert v.slider_lo <= v.slider_value() <= v.slider_hi
 
 
@@ -177,7 +183,7 @@ def test_pole_zero_points_are_the_primary_gain_with_cancelled_pairs_left_out(des
 
 
 def test_added_second_stage_has_the_documented_defaults_and_removal_restores(design):
-    from freqpair.explore import with_second_stage
+    from freqpair.views.explore import with_second_stage
     two = with_second_stage(design, True)
     s = two.second_stage
     # DESIGN.md §3a example stage values (the explorer's documented starting point)
@@ -193,7 +199,7 @@ def test_added_second_stage_has_the_documented_defaults_and_removal_restores(des
 
 
 def test_design_difference_names_the_old_value_kind_or_section(design):
-    from freqpair.explore import design_difference, switch_kind, with_second_stage
+    from freqpair.views.explore import design_difference, switch_kind, with_second_stage
     changed = freqpair.replace_value(design, "tail.capacitance", "20 pF")
     # common practice: a snapshot is labelled by its own value of what was changed
     assert design_difference(design, changed) == "C_tail 2 pF"

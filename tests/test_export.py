@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 
 import freqpair
-from freqpair.export import curves_table
-from freqpair.frequency import FrequencyGrid
+from freqpair.views.export import curves_table
+from freqpair.circuit.frequency import FrequencyGrid
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent
 EXAMPLES = sorted((ROOT / "examples").glob("*.toml"))
@@ -94,7 +94,7 @@ def test_csv_phase_is_unwrapped(tmp_path):
 
 def test_csv_values_equal_the_library_table(tmp_path, builtin_design):
     # oracle: Python's float repr round trip (exact) against curves_table
-    from freqpair.export import write_curves_csv
+    from freqpair.views.export import write_curves_csv
     a = freqpair.analyze(builtin_design)
     out = tmp_path / "c.csv"
     write_curves_csv(a, out)

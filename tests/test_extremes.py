@@ -12,9 +12,9 @@ import numpy as np
 import pytest
 import scipy.constants as sc
 
-from freqpair.design import parse_design
-from freqpair.responses import StageResponses
-from freqpair.stage import build_stage
+from freqpair.design.schema import parse_design
+from freqpair.analysis.responses import StageResponses
+from freqpair.circuit.stage import build_stage
 
 mpmath.mp.dps = 50
 F_HZ = np.logspace(-3, 12, 16)          # 1 mHz … 1 THz

@@ -14,10 +14,10 @@ import numpy as np
 import pytest
 
 import freqpair
-from freqpair.design import replace_value
-from freqpair.fit import FitError, FreeValue, fit_design, parse_free_spec
-from freqpair.measured import Measurement, model_response
-from freqpair.responses import StageResponses
+from freqpair.design.keys import replace_value
+from freqpair.studies.fit import FitError, FreeValue, fit_design, parse_free_spec
+from freqpair.studies.measured import Measurement, model_response
+from freqpair.analysis.responses import StageResponses
 from helpers import run_cli, synthetic_measurement
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent
@@ -234,7 +234,7 @@ def test_demo_measurement_is_labelled_synthetic_and_fits_back(tmp_path):
                           env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"}, timeout=60)
     assert proc.returncode == 0, proc.stderr
     assert "SYNTHETIC" in csv_path.read_text(encoding="utf-8").splitlines()[0]
-    from freqpair.measured import read_measurement
+    from freqpair.studies.measured import read_measurement
     meas = read_measurement(csv_path, "cmrr")
     design = freqpair.load_design(DESIGN_PATH)
     result = fit_design(design, meas, ["tail.capacitance", "tail.resistance"])

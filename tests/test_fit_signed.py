@@ -14,11 +14,16 @@ import numpy as np
 import pytest
 
 import freqpair
-from freqpair.design import replace_value
-from freqpair.fit import (MISMATCH_BOUNDS, FitError, fit_design, is_signed_key,
-                          parse_free_spec)
-from freqpair.measured import Measurement, model_response
-from freqpair.responses import StageResponses
+from freqpair.design.keys import replace_value
+from freqpair.studies.fit import (
+    MISMATCH_BOUNDS,
+    FitError,
+    fit_design,
+    is_signed_key,
+    parse_free_spec,
+)
+from freqpair.studies.measured import Measurement, model_response
+from freqpair.analysis.responses import StageResponses
 from helpers import run_cli, synthetic_measurement
 from conftest import ROOT
 

@@ -4,8 +4,8 @@ import math
 import pytest
 
 import freqpair
-from freqpair.design import BUILTIN_EXAMPLE
-from freqpair.hand import hand_json, hand_table
+from freqpair.design.files import BUILTIN_EXAMPLE
+from freqpair.analysis.hand import hand_json, hand_table
 
 from conftest import ROOT
 from helpers import design_with

@@ -14,9 +14,9 @@ from bokeh.document import Document
 
 import freqpair
 from freqpair.app.view import make_doc
-from freqpair.design import BUILTIN_EXAMPLE
-from freqpair.hand import hand_json, hand_table
-from freqpair.report import report_html
+from freqpair.design.files import BUILTIN_EXAMPLE
+from freqpair.analysis.hand import hand_json, hand_table
+from freqpair.views.report import report_html
 
 from conftest import ROOT
 from helpers import design_with, run_cli

@@ -9,8 +9,14 @@ import numpy as np
 import pytest
 
 import freqpair
-from freqpair.design import replace_value
-from freqpair.loop import LOOP_JSON_KEYS, loop_analysis, loop_curves, loop_model, step_response
+from freqpair.design.keys import replace_value
+from freqpair.analysis.loop import (
+    LOOP_JSON_KEYS,
+    loop_analysis,
+    loop_curves,
+    loop_model,
+    step_response,
+)
 
 from loop_designs import clean_two_stage
 from conftest import ROOT

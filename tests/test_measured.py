@@ -6,8 +6,15 @@ import pytest
 
 import freqpair
 from helpers import design_with
-from freqpair.measured import (Measurement, MeasurementError, normalize_kind, overlay,
-                               parse_measurement_text, read_measurement, wrap_deg)
+from freqpair.studies.measured import (
+    Measurement,
+    MeasurementError,
+    normalize_kind,
+    overlay,
+    parse_measurement_text,
+    read_measurement,
+    wrap_deg,
+)
 
 # A pair close to the textbook idealisation: huge β and V_A, no device capacitances,
 # a Norton tail R ∥ C. Used as the oracle stage for the overlay.
@@ -152,7 +159,7 @@ def test_overlay_of_zero_model_gain_is_refused(builtin_design):
 
 def test_overlay_figure_holds_measurement_model_and_residual():
     pytest.importorskip("bokeh")
-    from freqpair.measured_plots import overlay_columns, overlay_figure
+    from freqpair.views.measured_plots import overlay_columns, overlay_figure
     design = IDEAL_PAIR
     f = np.logspace(3, 6, 7)
     meas = Measurement("cmrr", f, np.full(7, 60.0), np.full(7, 170.0))

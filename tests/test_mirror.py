@@ -8,10 +8,10 @@ import numpy as np
 import pytest
 import scipy.constants as sc
 
-from freqpair.analysis import analyze
-from freqpair.design import parse_design
-from freqpair.responses import StageResponses
-from freqpair.stage import build_stage
+from freqpair.analysis.result import analyze
+from freqpair.design.schema import parse_design
+from freqpair.analysis.responses import StageResponses
+from freqpair.circuit.stage import build_stage
 
 ROOT = __import__("pathlib").Path(__file__).resolve().parent.parent
 
@@ -161,7 +161,7 @@ def test_mirror_mismatch_raises_common_mode_gain():
 
 
 def test_mirror_device_with_tiny_vbe_is_reported_saturated():
-    from freqpair.errors import BiasError
+    from freqpair.design.errors import BiasError
     with pytest.raises(BiasError, match=r"load.device \(pnp mirror\): saturated: V_CE = V_BE = 0.1 V"):
         build_stage(make({"type": "ideal"}, pair=bjt("npn"),
                          load={"type": "mirror", "device": bjt("pnp", vbe=0.1)}))

@@ -7,8 +7,8 @@ import pytest
 import scipy.constants as sc
 import sympy as sp
 
-from freqpair.analysis import analyze
-from freqpair.design import load_design
+from freqpair.analysis.result import analyze
+from freqpair.design.files import load_design
 
 EXAMPLE = Path(__file__).resolve().parent.parent / "examples" / "npn_mirror_load_simple_mirror_tail.toml"
 

@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 
 import freqpair
-from freqpair.design import BUILTIN_EXAMPLE
-from freqpair.errors import FreqpairError
-from freqpair.montecarlo import MonteCarloSpec, Spread, run_montecarlo, sampled_design
+from freqpair.design.files import BUILTIN_EXAMPLE
+from freqpair.design.errors import FreqpairError
+from freqpair.studies.montecarlo import MonteCarloSpec, Spread, run_montecarlo, sampled_design
 
 SPEC = MonteCarloSpec.from_dict({"mismatch.load": ("normal", 0.01),
                                  "mismatch.gm": ("normal", 0.01),
@@ -174,7 +174,7 @@ WIDE = MonteCarloSpec.from_dict({"mismatch.load": ("uniform", 0.9),
 def _direct_gains(design, f_hz):
     """Oracle: scipy.linalg.solve of the sampled design's own freshly stamped G + sC."""
     import scipy.linalg as sla
-    from freqpair.stage import build_stage
+    from freqpair.circuit.stage import build_stage
     net = build_stage(design).network
     G, C, B = net.matrices()
     exc = np.column_stack([B @ [0.5, -0.5], B @ [1.0, 1.0]])          # DM, CM (DESIGN.md §2)
@@ -185,8 +185,8 @@ def _direct_gains(design, f_hz):
 def test_grid_gains_of_wide_samples_match_a_direct_solve_of_each_sampled_network(design):
     # oracle: scipy.linalg.solve on each sampled design's own network (fresh stamps, LAPACK),
     # all five element kinds varied by up to ±95 %: the closed-form expansion is exact
-    from freqpair.batch import BatchEvaluator
-    from freqpair.montecarlo import sample_values
+    from freqpair.studies.batch import BatchEvaluator
+    from freqpair.studies.montecarlo import sample_values
     ev = BatchEvaluator(design, WIDE.keys)
     dG, dC = ev.deltas(sample_values(design, WIDE, 0, 12, 5))
     f = np.logspace(1, 10, 19)
@@ -224,7 +224,7 @@ def test_corner_beyond_the_run_grid_matches_single_analyses(design, f):
 def test_corner_refinement_needs_few_exact_evaluations(design, monkeypatch):
     # common practice: a secant step from a cubic interpolant of the grid converges
     # superlinearly; more than 6 rounds of exact solves means the seed or the update broke
-    from freqpair import montecarlo
+    from freqpair.studies import montecarlo
     calls = []
     real = montecarlo._Engine.cmrr_se_at
     monkeypatch.setattr(montecarlo._Engine, "cmrr_se_at",

@@ -13,8 +13,8 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from freqpair.errors import NetworkError
-from freqpair.network import GROUND, FrequencySolver, Network
+from freqpair.design.errors import NetworkError
+from freqpair.circuit.network import GROUND, FrequencySolver, Network
 
 
 def rc_divider(r=1e3, c=1e-9):
@@ -189,7 +189,7 @@ def test_sweep_is_accurate_deep_in_the_stop_band_of_an_8_node_network():
     # (A plain QZ back-substitution, without the refinement step, was measured
     # 8e-7 and 0.18 relative off at the two highest frequencies here.)
     mpmath = pytest.importorskip("mpmath")
-    from freqpair.network import DIRECT_MAX_POINTS
+    from freqpair.circuit.network import DIRECT_MAX_POINTS
     net = _gain_ladder()
     G, C, B = net.matrices()
     out = net.selector({"n7": 1.0})
@@ -245,7 +245,7 @@ def _blas_threads():
 def test_solver_runs_blas_single_threaded_and_restores_the_setting():
     # oracle: threadpoolctl's own report of the BLAS thread count (common practice:
     # a library call must not leave global state changed)
-    from freqpair.blas_threads import single_blas_thread
+    from freqpair.circuit.blas_threads import single_blas_thread
     pytest.importorskip("threadpoolctl")
     before = _blas_threads()
     net = _gain_ladder()
@@ -329,7 +329,7 @@ def test_a_new_thread_can_limit_blas_after_overlapping_blocks_in_other_threads()
     # oracle: threadpoolctl's own report of the BLAS thread count inside the block
     pytest.importorskip("threadpoolctl")
     import threading
-    from freqpair.blas_threads import single_blas_thread
+    from freqpair.circuit.blas_threads import single_blas_thread
     before = _blas_threads()
     a_in, b_in, a_out = threading.Event(), threading.Event(), threading.Event()
 

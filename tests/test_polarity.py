@@ -1,10 +1,10 @@
 """pnp and pmos stages are mirror images of npn and nmos stages."""
 import pytest
 
-from freqpair.analysis import analyze
-from freqpair.design import parse_design
-from freqpair.errors import BiasError, DesignError
-from freqpair.stage import build_stage
+from freqpair.analysis.result import analyze
+from freqpair.design.schema import parse_design
+from freqpair.design.errors import BiasError, DesignError
+from freqpair.circuit.stage import build_stage
 
 KEYS = ("adm_db", "f3db_hz", "ugf_hz", "acm_se_db", "cmrr_se_db", "cmrr_corner_hz")
 

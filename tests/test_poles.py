@@ -9,9 +9,11 @@ import pytest
 import sympy as sp
 
 import freqpair
-from freqpair.design import BUILTIN_EXAMPLE, replace_value
-from freqpair.errors import FreqpairError
-from freqpair.poles import pole_zero_table, response_zpk
+from freqpair.design.files import BUILTIN_EXAMPLE
+from freqpair.design.keys import replace_value
+from freqpair.design.errors import FreqpairError
+from freqpair.analysis.pole_table import pole_zero_table
+from freqpair.analysis.poles import response_zpk
 
 from conftest import EXAMPLES, ROOT
 

@@ -20,12 +20,12 @@ import scipy.constants as sc
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from freqpair.analysis import analyze
-from freqpair.design import parse_design
-from freqpair.errors import FreqpairError
-from freqpair.quantities import format_si
-from freqpair.responses import StageResponses
-from freqpair.stage import build_stage
+from freqpair.analysis.result import analyze
+from freqpair.design.schema import parse_design
+from freqpair.design.errors import FreqpairError
+from freqpair.design.quantities import format_si
+from freqpair.analysis.responses import StageResponses
+from freqpair.circuit.stage import build_stage
 
 #: "deep" profile (tests/conftest.py): 10,000 examples for every property test
 DEEP = os.environ.get("FREQPAIR_HYPOTHESIS_PROFILE") == "deep"
@@ -333,7 +333,7 @@ import sys  # noqa: E402
 
 import tomli_w  # noqa: E402
 
-from freqpair.cli import main  # noqa: E402
+from freqpair.cli.main import main  # noqa: E402
 
 
 def _leaf_keys(d, prefix=""):
@@ -500,7 +500,7 @@ def test_arbitrary_text_is_refused_in_one_line(text, capsys, work):
 ])
 def test_a_real_subprocess_refuses_a_bad_file_in_one_line(tmp_path, edit, names):
     # oracle: DESIGN.md §4 (exit non-zero, one stderr line, empty stdout), as a user runs it
-    from freqpair.design import BUILTIN_EXAMPLE
+    from freqpair.design.files import BUILTIN_EXAMPLE
     bad = {"beta = 200": "beta = -200", 'resistance = "nan"': 'resistance = "nan"',
            '[load]\ntype = "resistor"': '[load]\ntype = "resistr"'}[edit]
     text = BUILTIN_EXAMPLE.replace('resistance = "1 M"', bad) if "nan" in edit \

@@ -11,8 +11,9 @@ import time
 import pytest
 
 import freqpair
-from freqpair import design as design_mod
-from freqpair.report import format_metric, metric_rows, report_html, write_report
+from freqpair.design import files as design_mod
+from freqpair.analysis.summary import format_metric, metric_rows
+from freqpair.views.report import report_html, write_report
 from test_report_support import artifacts_dir, check_html, chromium_driver, close_driver
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent
@@ -172,7 +173,7 @@ def test_report_cli_bad_design_is_one_line_and_no_file(tmp_path):
 
 def test_analysis_prints_as_the_summary(builtin_design):
     # oracle: the summary face (summary.format_summary) — str() is that text
-    from freqpair.summary import CAUTION, format_summary
+    from freqpair.analysis.summary import CAUTION, format_summary
     a = freqpair.analyze(builtin_design)
     assert str(a) == format_summary(a) and CAUTION in str(a)
 
@@ -236,7 +237,7 @@ def test_strict_html_check_rejects_broken_pages(bad):
 
 def test_report_shows_hand_rows_when_the_hand_module_exists(builtin_design):
     # oracle: freqpair.hand's own table — the report shows each of its labels
-    from freqpair import hand
+    from freqpair.analysis import hand
     a = freqpair.analyze(builtin_design)
     html = report_html(a)
     from html import escape
@@ -259,7 +260,7 @@ def test_report_shows_loop_margins_as_the_json_gives_them(builtin_design):
 def test_plot_helpers_return_restylable_bokeh_figures(builtin_design):
     # oracle: Bokeh's own model API — a returned figure accepts new styling
     from bokeh.plotting import figure
-    from freqpair.report_plots import bode_figures, cmrr_figure, overlay_figure
+    from freqpair.views.report_plots import bode_figures, cmrr_figure, overlay_figure
     a = freqpair.analyze(builtin_design)
     mag, phase = bode_figures(a)
     cm = cmrr_figure(a)
@@ -277,7 +278,7 @@ def test_report_and_explorer_draw_a_gain_with_the_same_builder_and_colour(builti
     import numpy as np
     from bokeh.document import Document
     from freqpair.app.view import make_doc
-    from freqpair.report_plots import bode_figures, cmrr_figure
+    from freqpair.views.report_plots import bode_figures, cmrr_figure
     a = freqpair.analyze(builtin_design)
     mag, _ = bode_figures(a)
     ex = make_doc(Document(), design=builtin_design)

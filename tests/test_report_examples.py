@@ -110,7 +110,7 @@ def test_mirror_load_zero_sits_near_twice_the_mirror_pole(load_script):
 
 def _control_loop_and_gain(result):
     """python-control transfer functions of the loop gain T and of the amplifier A (s in rad/s / w0)."""
-    from freqpair.loop import loop_model
+    from freqpair.analysis.loop import loop_model
     model = loop_model(result)
     w0 = 2 * math.pi * 1e6
     z, p = model.zeros_rad_s / w0, model.poles_rad_s / w0
@@ -131,7 +131,7 @@ def test_solved_miller_capacitor_gives_60_degrees_and_the_step_python_control_gi
     assert pm == pytest.approx(60.0, abs=0.1)
     assert solved["phase_margin_deg"] == pytest.approx(pm, abs=0.1)
     # oracle: python-control step response of A/(1 + T) on the same (even) time grid
-    from freqpair.loop import step_response
+    from freqpair.analysis.loop import step_response
     t_s = np.linspace(0.0, 3 * solved["settling_time_s"], 1501)
     _, y_fp = step_response(freqpair.analyze(rows["solved"].design), t_s)
     closed = control.feedback(a, model.sign * model.beta)

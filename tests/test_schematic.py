@@ -7,8 +7,8 @@ import xml.etree.ElementTree as ET
 import pytest
 
 import freqpair
-from freqpair.quantities import format_si
-from freqpair.schematic import stage_svg
+from freqpair.design.quantities import format_si
+from freqpair.views.schematic import stage_svg
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent
 EXAMPLES = sorted((ROOT / "examples").glob("*.toml"))

@@ -6,7 +6,7 @@ import pytest
 import sympy as sp
 
 import freqpair
-from freqpair.loop import loop_model
+from freqpair.analysis.loop import loop_model
 
 from loop_designs import clean_two_stage
 

@@ -3,10 +3,12 @@ import numpy as np
 import pytest
 
 import freqpair
-from freqpair.design import BUILTIN_EXAMPLE, replace_value
-from freqpair.network import with_element_scaled
-from freqpair.poles import _augmented, _refine, pole_zero_table, response_zpk
-from freqpair.sensitivity import pole_sensitivities
+from freqpair.design.files import BUILTIN_EXAMPLE
+from freqpair.design.keys import replace_value
+from freqpair.circuit.network import with_element_scaled
+from freqpair.analysis.poles import _augmented, _refine, response_zpk
+from freqpair.analysis.pole_table import pole_zero_table
+from freqpair.analysis.sensitivity import pole_sensitivities
 
 from conftest import ROOT
 

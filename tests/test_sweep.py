@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 
 import freqpair
-from freqpair.design import BUILTIN_EXAMPLE
-from freqpair.errors import FreqpairError
-from freqpair.sweep import SweepAxis, solve_target, sweep
+from freqpair.design.files import BUILTIN_EXAMPLE
+from freqpair.design.errors import FreqpairError
+from freqpair.studies.sweep import SweepAxis, solve_target, sweep
 
 ROOT = pathlib.Path(__file__).parent.parent
 
@@ -121,7 +121,7 @@ def test_cli_target_reports_the_reanalysed_value():
 def test_phase_margin_is_a_sweep_metric_equal_to_the_loop_analysis():
     # oracle: a single loop analysis of the same design (itself checked against
     # python-control stability_margins in test_loop.py); sweeps agree point by point
-    from freqpair.loop import loop_analysis
+    from freqpair.analysis.loop import loop_analysis
     d = freqpair.load_design(ROOT / "examples" / "two_stage_miller_loop.toml")
     values = [4e-12, 16e-12]
     res = sweep(d, [SweepAxis("second_stage.miller_capacitance", values)],

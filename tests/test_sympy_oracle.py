@@ -15,7 +15,7 @@ import scipy.constants as sc
 import sympy as sp
 
 import freqpair
-from freqpair.analysis import analyze
+from freqpair.analysis.result import analyze
 
 REL = 1e-9
 # A_cm-dm is |A_dm|/CMRR: float64 rounding of the node voltages (≈ 1e-16 of |A_dm|)

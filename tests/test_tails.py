@@ -8,10 +8,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from freqpair.analysis import analyze
-from freqpair.design import parse_design
-from freqpair.errors import BiasError
-from freqpair.stage import build_stage
+from freqpair.analysis.result import analyze
+from freqpair.design.schema import parse_design
+from freqpair.design.errors import BiasError
+from freqpair.circuit.stage import build_stage
 
 ROOT = Path(__file__).resolve().parent.parent
 I_TAIL = 1e-3

@@ -5,8 +5,8 @@ from pathlib import Path
 import pytest
 import sympy as sp
 
-from freqpair.analysis import analyze
-from freqpair.design import load_design
+from freqpair.analysis.result import analyze
+from freqpair.design.files import load_design
 
 EXAMPLE = Path(__file__).resolve().parent.parent / "examples" / "nmos_mirror_load_cascode_tail.toml"
 

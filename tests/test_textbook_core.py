@@ -13,11 +13,11 @@ import pytest
 import scipy.constants as sc
 
 import freqpair
-from freqpair.analysis import analyze
-from freqpair.design import replace_value
-from freqpair.devices import thermal_voltage
+from freqpair.analysis.result import analyze
+from freqpair.design.keys import replace_value
+from freqpair.circuit.devices import thermal_voltage
 from helpers import design_with
-from freqpair.metrics import DB_3
+from freqpair.analysis.crossings import DB_3
 
 # A bipolar pair made "ideal" where a textbook formula assumes so:
 # β = 1e6 and V_A = 1e6 V (r_o ≈ 2 GΩ), no capacitances, R_s = r_b = 0.

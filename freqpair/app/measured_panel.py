@@ -14,7 +14,7 @@ import dataclasses
 
 import numpy as np
 
-from ..measured import KINDS, MeasurementError, parse_measurement_text
+from freqpair.studies.measured import KINDS, MeasurementError, parse_measurement_text
 
 __all__ = ["measurement_from_upload", "MeasuredPanel", "MEASURED_COLUMNS", "MAX_FILE_BYTES",
            "upload_text"]
@@ -112,7 +112,7 @@ class MeasuredPanel:
     def add_to(self, gains_fig, cmrr_fig):
         """Draw the markers, the model at the measured points and the residual (on a
         secondary axis) on the gain and CMRR figures, hidden until a measurement shows."""
-        from ..plots import PALETTE, add_residual_axis
+        from freqpair.views.plots import PALETTE, add_residual_axis
         for key, fig in (("gains", gains_fig), ("cmrr", cmrr_fig)):
             model = fig.line("f_hz", "model_db", source=self.source, color=PALETTE["measured"],
                              line_dash="dotted", line_width=1.5,

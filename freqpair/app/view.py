@@ -13,14 +13,29 @@ from bokeh.layouts import column, row
 from bokeh.models import (Button, ColumnDataSource, CustomJS, DataTable, Div, FileInput,
                           Select, Slider, TableColumn, TabPanel, Tabs, TextInput)
 
-from ..design import (BUILTIN_EXAMPLE, design_from_text, design_to_dict, load_design,
-                      parse_design, replace_value)
-from ..errors import DesignError, FreqpairError
-from ..explore import (KIND_CHOICES, curves_csv, design_difference, editable_values, explore,
-                       explore_grid, switch_kind, with_second_stage)
-from ..plots import (PALETTE, bode_figure, cmrr_figure, pin_legend_items, pole_zero_figure,
-                     set_legend_label)
-from .measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
+from freqpair.design.files import BUILTIN_EXAMPLE, design_from_text, load_design
+from freqpair.design.schema import design_to_dict, parse_design
+from freqpair.design.keys import replace_value
+from freqpair.design.errors import DesignError, FreqpairError
+from freqpair.views.explore import (
+    KIND_CHOICES,
+    curves_csv,
+    design_difference,
+    editable_values,
+    explore,
+    explore_grid,
+    switch_kind,
+    with_second_stage,
+)
+from freqpair.views.plots import (
+    PALETTE,
+    bode_figure,
+    cmrr_figure,
+    pin_legend_items,
+    pole_zero_figure,
+    set_legend_label,
+)
+from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
 
 __all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS", "MAX_PINS", "Pin"]
 
@@ -542,7 +557,7 @@ def _html(text: str) -> str:
 
 
 def _status(data) -> str:
-    from ..quantities import format_si
+    from freqpair.design.quantities import format_si
     corner = format_si(data["cmrr_corner_hz"], "Hz")
     cross = data["target_cross_hz"]
     text = (f"f_3dB {format_si(data['f3db_hz'], 'Hz')} · CMRR corner {corner} · "

@@ -1,0 +1,133 @@
+"""The stage's gains as functions of frequency (DESIGN.md §2, excitations and outputs).
+
+Excitations: differential ``v_id = v_in1 − v_in2`` (in1 = +½, in2 = −½) and
+common mode ``v_ic`` (in1 = in2 = 1). Outputs: balanced ``v_o1 − v_o2``,
+single-ended ``v_o2``, and the second stage's ``out`` when present.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from freqpair.circuit.frequency import s_of_hz
+from freqpair.circuit.stage import Stage
+
+__all__ = ["StageResponses", "ResponseSet", "RESPONSE_NAMES", "ZERO_GAIN_RATIO"]
+
+#: A gain below this fraction of |A_dm(0)| is exactly zero (DESIGN.md §2).
+ZERO_GAIN_RATIO = 1e-12
+
+RESPONSE_NAMES = {
+    "adm": "differential gain A_dm = v_od/v_id",
+    "adm_se": "single-ended differential gain A_dm,se = v_o2/v_id",
+    "acm_se": "single-ended common-mode gain A_cm,se = v_o2/v_ic",
+    "acm_dm": "common-mode to differential gain A_cm-dm = v_od/v_ic",
+    "acm_cm": "common-mode to common-mode gain A_cm-cm = (v_o1+v_o2)/2/v_ic",
+    "a_total": "overall gain A_total = v_out/v_id (with second stage)",
+    "acm_total": "common-mode gain to the second-stage output v_out/v_ic",
+}
+
+_B_DM = np.array([0.5, -0.5])
+_B_CM = np.array([1.0, 1.0])
+
+
+@dataclass(frozen=True)
+class ResponseSet:
+    """Complex gains at a set of frequencies (each an array over frequency).
+
+    ``adm``, ``acm_dm`` and ``acm_cm`` are None without a balanced output;
+    ``a_total``, ``acm_total`` are None without a second stage.
+    """
+
+    f_hz: np.ndarray
+    adm: np.ndarray | None
+    adm_se: np.ndarray
+    acm_se: np.ndarray
+    acm_dm: np.ndarray | None
+    acm_cm: np.ndarray | None
+    a_total: np.ndarray | None
+    acm_total: np.ndarray | None
+
+    def get(self, name: str) -> np.ndarray | None:
+        return getattr(self, name)
+
+
+class StageResponses:
+    """Evaluates the stage's gains on any frequencies, reusing one pencil reduction.
+
+    Parameters
+    ----------
+    stage : Stage
+    """
+
+    def __init__(self, stage: Stage):
+        self.stage = stage
+        net = stage.network
+        rows = [net.selector({"o1": 1.0}), net.selector({"o2": 1.0})]
+        if stage.final_node != "o2":
+            rows.append(net.selector({stage.final_node: 1.0}))
+        self.solver = net.solver(np.array(rows))
+        self._dc: ResponseSet | None = None
+
+    @property
+    def primary(self) -> str:
+        """Name of the gain the stage's A_dm, f_3dB, UGF and loop use."""
+        if self.stage.final_node != "o2":
+            return "a_total"
+        return "adm" if self.stage.balanced else "adm_se"
+
+    def _assemble(self, f_hz, H) -> ResponseSet:
+        dm = H @ _B_DM          # (n_f, p)
+        cm = H @ _B_CM
+        bal = self.stage.balanced
+        total = H.shape[1] > 2
+        return ResponseSet(
+            f_hz=np.asarray(f_hz, dtype=float),
+            adm=(dm[:, 0] - dm[:, 1]) if bal else None,
+            adm_se=dm[:, 1],
+            acm_se=cm[:, 1],
+            acm_dm=(cm[:, 0] - cm[:, 1]) if bal else None,
+            acm_cm=(0.5 * (cm[:, 0] + cm[:, 1])) if bal else None,
+            a_total=dm[:, 2] if total else None,
+            acm_total=cm[:, 2] if total else None,
+        )
+
+    def at(self, f_hz) -> ResponseSet:
+        """All gains at frequencies ``f_hz`` [Hz] (batched over frequency)."""
+        f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+        return self._assemble(f, self.solver.response(s_of_hz(f)))
+
+    def dc(self) -> ResponseSet:
+        """All gains at s = 0 exactly (direct solve of G)."""
+        if self._dc is None:
+            H = self.solver.dc()[None, :, :]
+            self._dc = self._assemble(np.zeros(1), H)
+        return self._dc
+
+    def gain(self, name: str, f_hz) -> np.ndarray:
+        """One named gain at ``f_hz`` [Hz] (complex array)."""
+        value = self.at(f_hz).get(name)
+        if value is None:
+            raise KeyError(f"{name}: not defined for this stage")
+        return value
+
+    def excitation(self, kind: str) -> np.ndarray:
+        """Network input vector b for 'dm' or 'cm' excitation."""
+        B = self.solver.B
+        return B @ (_B_DM if kind == "dm" else _B_CM)
+
+    def output_row(self, name: str) -> tuple[np.ndarray, str]:
+        """Output row l and the excitation kind for a named gain."""
+        net = self.stage.network
+        rows = {
+            "adm": ({"o1": 1.0, "o2": -1.0}, "dm"),
+            "adm_se": ({"o2": 1.0}, "dm"),
+            "acm_se": ({"o2": 1.0}, "cm"),
+            "acm_dm": ({"o1": 1.0, "o2": -1.0}, "cm"),
+            "acm_cm": ({"o1": 0.5, "o2": 0.5}, "cm"),
+            "a_total": ({self.stage.final_node: 1.0}, "dm"),
+            "acm_total": ({self.stage.final_node: 1.0}, "cm"),
+        }
+        combo, kind = rows[name]
+        return net.selector(combo), kind

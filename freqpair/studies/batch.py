@@ -1,0 +1,465 @@
+"""Batched evaluation of many value-perturbed copies of one stage.
+
+Monte Carlo samples of a design differ from the nominal only in a few element
+values (load resistors, pair g_m, tail R and C, load capacitors); the
+topology, node order and every other value stay the same. Each such element
+is a rank-one stamp ``d·u·vᵀ`` (two-terminal: ``u = v = e_a − e_b``; a
+transconductance: ``u = e_out − e_in``, ``v = e_ctrl+ − e_ctrl−``), so a
+sample's pencil is
+
+    G + s·C = (G0 + s·C0) + U · diag(d(s)) · Vᵀ,   d_k(s) = ΔG_k + s·ΔC_k
+
+with one column of U, V per distinct pattern (R and C on the same node pair
+share one). The nominal pencil is reduced once (QZ, as in
+:class:`~freqpair.network.FrequencySolver`) for the right-hand sides ``[B, U]``
+and the outputs ``[L; Vᵀ]``, which gives at each frequency
+
+    H = H0 − P · (I + D·K)⁻¹ · D · Q,   H0 = L A⁻¹ B, P = L A⁻¹ U,
+                                         Q = Vᵀ A⁻¹ B, K = Vᵀ A⁻¹ U,
+
+exact (no small-perturbation approximation) for any deltas, zero included.
+
+On a frequency grid the r × r systems (r ≤ 5) are solved in closed form. By
+multilinearity of the determinant in the rows of ``I + D·K``,
+
+    det(I + D·K)              = Σ_S d^S · det K[S, S]
+    det(I + D·K) · H[a, b]    = Σ_S d^S · det [[K, Q_b], [P_a, H0_ab]][S+, S+]
+
+over the subsets S of the r columns (``S+`` = S and the bordering row/column,
+``d^S`` = Π_{k∈S} d_k). The minors depend on frequency only and are computed
+once per grid; with ``d_k = ΔG_k + s·ΔC_k`` expanded, each polynomial is a sum
+of per-sample monomials (products of ΔG's and ΔC's, real) times per-frequency
+weights (minor × s^m, complex): one real matrix product for all samples and
+frequencies. The CMRR is a ratio of two numerators (the determinant cancels).
+
+At one frequency per sample (root refinement) each sample's own ``G + s·C``
+is solved directly.
+
+Array layout: samples first, then frequency: ``(n_samples, n_f, ...)``.
+Outputs are the rows ``[o1 − o2, o2]`` and excitations the columns ``[DM, CM]``.
+"""
+from __future__ import annotations
+
+import contextlib
+import itertools
+from dataclasses import dataclass
+
+import numpy as np
+
+from freqpair.design.errors import DesignError
+from freqpair.circuit.network import GROUND, FrequencySolver
+from freqpair.analysis.responses import _B_CM, _B_DM, ZERO_GAIN_RATIO
+from freqpair.circuit.stage import build_stage
+
+__all__ = ["BatchEvaluator", "BATCH_KEYS", "BatchGains"]
+
+#: Design keys a batched evaluation can vary (values that do not move the bias).
+BATCH_KEYS = ("mismatch.load", "mismatch.gm", "tail.resistance", "tail.capacitance",
+              "load.capacitance")
+
+
+@dataclass(frozen=True)
+class BatchGains:
+    """Complex gains of many samples; every array has shape ``(n_samples, ...)``.
+
+    ``adm`` and ``acm_dm`` are None for a stage without a balanced output.
+    """
+
+    adm: np.ndarray | None
+    adm_se: np.ndarray
+    acm_se: np.ndarray
+    acm_dm: np.ndarray | None
+
+
+#: Sample × frequency elements per matrix-product block: the block holds
+#: ``rows = GEMM_ELEMENTS // n_f`` samples (8 … 256; a function of n_f only, so
+#: every chunk uses the same shapes) and its product 10 reals per element (~1.6 MB).
+GEMM_ELEMENTS = 20_000
+#: Samples per batched direct solve (one n × n complex matrix each, ~2.4 MB for 12 nodes).
+SOLVE_BLOCK = 1024
+#: Polynomials of the grid expansion: det(I + D·K), then the numerators of
+#: (balanced, DM), (balanced, CM), (o2, DM), (o2, CM).
+_POLYS = ("det", "adm", "acm_dm", "adm_se", "acm_se")
+_BLAS = None
+
+
+@contextlib.contextmanager
+def _single_threaded_blas():
+    """BLAS on one thread: identical results with any thread count (workers of a
+    cluster run single-threaded) and, for these small products, faster on a busy
+    machine (worker-thread wake-ups)."""
+    global _BLAS
+    try:
+        if _BLAS is None:
+            from threadpoolctl import ThreadpoolController
+            _BLAS = ThreadpoolController()
+        limiter = _BLAS.limit(limits=1, user_api="blas")
+    except Exception:                     # threadpoolctl missing or unusable: no limit
+        limiter = contextlib.nullcontext()
+    with limiter:
+        yield
+
+
+def _split(delta, side):
+    return 1.0 + (delta / 2.0 if side == 1 else -delta / 2.0)
+
+
+class BatchEvaluator:
+    """Evaluate the gains of many samples of one design at once.
+
+    Parameters
+    ----------
+    design : freqpair.design.Design
+        The nominal design.
+    keys : sequence of str
+        The design keys that vary (a subset of :data:`BATCH_KEYS`).
+    """
+
+    def __init__(self, design, keys):
+        for key in keys:
+            if key not in BATCH_KEYS:
+                raise DesignError(f"{key}: cannot be varied in a batched run "
+                                  f"(supported: {', '.join(BATCH_KEYS)})")
+        self.design = design
+        self.keys = tuple(keys)
+        self.stage = build_stage(design)
+        net = self.stage.network
+        self.balanced = self.stage.balanced
+        G, C, B = net.matrices()
+        self.n = G.shape[0]
+        self._index = {name: i for i, name in enumerate(net.node_names)}
+        self._by_label = {e[1]: e for e in net.elements}
+        # element label -> (key, value function of the key's sampled values)
+        self._rules = self._element_rules()
+        patterns: list[tuple[bytes, np.ndarray, np.ndarray]] = []
+        self._slots: list[tuple[int, str, float, object]] = []   # (col, kind, nominal, fn)
+        for label, (key, fn) in self._rules.items():
+            kind, _, nodes, nominal = self._by_label[label]
+            u, v = self._vectors(kind, nodes)
+            tag = u.tobytes() + v.tobytes()
+            col = next((i for i, (t, _, _) in enumerate(patterns) if t == tag), None)
+            if col is None:
+                col = len(patterns)
+                patterns.append((tag, u, v))
+            self._slots.append((col, kind, nominal, (key, fn)))
+        self.rank = len(patterns)
+        U = np.array([p[1] for p in patterns]).T.reshape(self.n, self.rank)
+        V = np.array([p[2] for p in patterns]).T.reshape(self.n, self.rank)
+        rows = np.array([net.selector({"o1": 1.0, "o2": -1.0}), net.selector({"o2": 1.0})])
+        exc = np.column_stack([B @ _B_DM, B @ _B_CM])
+        self.solver = FrequencySolver(G, C, np.hstack([exc, U]), np.vstack([rows, V.T]))
+        # per column: which factors its delta has (0: absent, 1: ΔG, 2: s·ΔC)
+        has_g = [any(c == col and k != "C" for c, k, _, _ in self._slots)
+                 for col in range(self.rank)]
+        has_c = [any(c == col and k == "C" for c, k, _, _ in self._slots)
+                 for col in range(self.rank)]
+        self._options = [(0,) + ((1,) if has_g[j] else ()) + ((2,) if has_c[j] else ())
+                         for j in range(self.rank)]
+        #: monomials as tuples of factor codes per column, in :meth:`_monomials` order
+        self.monomials = [()]
+        for opts in self._options:
+            self.monomials = [m + (o,) for o in opts for m in self.monomials]
+        self._plans: dict[bytes, _GridPlan] = {}
+        # for the direct per-sample solve
+        self._G, self._C, self._rhs = G, C, exc
+        self._stamp_entries = [[(p, q, U[p, j] * V[q, j]) for p in np.nonzero(U[:, j])[0]
+                                for q in np.nonzero(V[:, j])[0]] for j in range(self.rank)]
+        self._row_entries = [[(k, r[k]) for k in np.nonzero(r)[0]] for r in rows]
+
+    # ------------------------------------------------------------ set-up
+    def _vectors(self, kind, nodes):
+        def e(name):
+            vec = np.zeros(self.n)
+            if name != GROUND:
+                vec[self._index[name]] = 1.0
+            return vec
+        if kind == "VCCS":
+            o_from, o_to, cp, cn = nodes
+            return e(o_from) - e(o_to), e(cp) - e(cn)
+        a, b = nodes
+        u = e(a) - e(b)
+        return u, u.copy()
+
+    def _element_rules(self) -> dict:
+        d = self.design
+        st = self.stage
+        rules = {}
+        for key in self.keys:
+            if key == "mismatch.load":
+                if d.load.type == "resistor":
+                    r = d.load.resistance
+                    rules["RL1"] = (key, lambda x, r=r: 1.0 / (r * _split(x, 1)))
+                    rules["RL2"] = (key, lambda x, r=r: 1.0 / (r * _split(x, 2)))
+                else:
+                    g = st.load_small_signal.gm
+                    rules["M3.gm"] = (key, lambda x, g=g: g * _split(x, 1))
+                    rules["M4.gm"] = (key, lambda x, g=g: g * _split(x, 2))
+            elif key == "mismatch.gm":
+                g = st.operating_point.small_signal.gm
+                rules["Q1.gm"] = (key, lambda x, g=g: g * _split(x, 1))
+                rules["Q2.gm"] = (key, lambda x, g=g: g * _split(x, 2))
+            elif key in ("tail.resistance", "tail.capacitance"):
+                if d.tail.type != "norton":
+                    raise DesignError(f"{key}: only a norton tail has this value "
+                                      f"(tail.type = {d.tail.type!r})")
+                if key == "tail.resistance":
+                    rules["Rtail"] = (key, lambda x: 1.0 / x)
+                else:
+                    rules["Ctail"] = (key, lambda x: x)
+            elif key == "load.capacitance":
+                labels = ("CL1", "CL2") if d.load.type == "resistor" else ("CL",)
+                for lab in labels:
+                    rules[lab] = (key, lambda x: x)
+        # elements absent from the nominal network (a zero capacitance) carry no rule;
+        # a relative spread around zero keeps them zero (checked in deltas()).
+        self._absent = {lab: key for lab, (key, _) in rules.items() if lab not in self._by_label}
+        return {lab: rule for lab, rule in rules.items() if lab in self._by_label}
+
+    # ------------------------------------------------------------ per sample
+    def deltas(self, values: dict[str, np.ndarray]):
+        """Per-sample conductance and capacitance deltas, each ``(n_samples, rank)``.
+
+        Parameters
+        ----------
+        values : dict of str → ndarray (n_samples,)
+            Sampled design values for every varied key (SI units).
+        """
+        n_s = len(next(iter(values.values()))) if values else 0
+        dG = np.zeros((n_s, self.rank))
+        dC = np.zeros((n_s, self.rank))
+        for lab, key in self._absent.items():
+            if np.any(values[key] != 0):
+                raise DesignError(f"{key}: the nominal value is 0 (absent); a spread around "
+                                  "it cannot be batched")
+        for col, kind, nominal, (key, fn) in self._slots:
+            target = dC if kind == "C" else dG
+            target[:, col] += fn(np.asarray(values[key], dtype=float)) - nominal
+        return dG, dC
+
+    def _blocks(self, H):
+        return H[..., :2, :2], H[..., :2, 2:], H[..., 2:, :2], H[..., 2:, 2:]
+
+    def _combine(self, H0, P, Q, K, D):
+        """H = H0 − P (I + D K)⁻¹ D Q for every sample (used at DC).
+
+        ``H0, P, Q, K`` carry a frequency axis (or none) in front of their
+        matrix axes; ``D`` is ``(n_samples, [n_f,] r)``. The r × r systems are
+        solved by Gaussian elimination vectorised over samples (r Python steps;
+        much faster than one LAPACK call per tiny matrix). The
+        matrix is the identity plus the relative size of each element change,
+        so elimination without pivoting is safe for any non-singular sample;
+        a singular one shows as a non-finite value and is reported by the caller.
+        """
+        r = self.rank
+        lead = D.shape[:-1]
+        if r == 0:
+            return np.broadcast_to(H0, lead + (2, 2)).copy()
+        Dm = np.ascontiguousarray(np.moveaxis(D, -1, 0))  # (r, *lead)
+
+        def front(X):   # (..., a, b) broadcast to lead, matrix axes first: (a, b, *lead)
+            if X.ndim - 2 < len(lead):
+                X = X.reshape((1,) * (len(lead) - X.ndim + 2) + X.shape)
+            return np.moveaxis(X, (-2, -1), (0, 1))
+
+        Km, Qm = front(K), front(Q)
+        M = np.ascontiguousarray(Dm[:, None] * Km)       # (r, r, *lead), contiguous
+        for i in range(r):
+            M[i, i] += 1.0
+        R = np.ascontiguousarray(Dm[:, None] * Qm)       # (r, 2, *lead)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            for k in range(r):
+                inv = 1.0 / M[k, k]
+                for i in range(k + 1, r):
+                    f = M[i, k] * inv
+                    if k + 1 < r:
+                        M[i, k + 1:] -= f * M[k, k + 1:]
+                    R[i] -= f * R[k]
+            for k in range(r - 1, -1, -1):
+                acc = R[k]
+                for j in range(k + 1, r):
+                    acc = acc - M[k, j] * R[j]
+                R[k] = acc / M[k, k]
+        # H = H0 - P X ; P[..., a, j] X[j, b]
+        Pm = front(P)
+        H = np.array(np.broadcast_to(front(H0), (2, 2) + lead), dtype=complex)
+        for a in range(2):
+            for j in range(r):
+                H[a] -= Pm[a, j] * R[j]
+        return np.moveaxis(H, (0, 1), (-2, -1))
+
+    def _gains(self, H) -> BatchGains:
+        """Named gains from ``H[..., row, col]``, rows [o1 − o2, o2], columns [DM, CM]."""
+        bal = self.balanced
+        return BatchGains(
+            adm=H[..., 0, 0].copy() if bal else None,
+            adm_se=H[..., 1, 0].copy(),
+            acm_se=H[..., 1, 1].copy(),
+            acm_dm=H[..., 0, 1].copy() if bal else None,
+        )
+
+    def dc(self, dG: np.ndarray) -> BatchGains:
+        """Gains at s = 0 exactly for every sample; arrays ``(n_samples,)``."""
+        H0, P, Q, K = self._blocks(self.solver.dc().astype(complex))
+        return self._gains(self._combine(H0, P, Q, K, dG.astype(complex)))
+
+    # ------------------------------------------------------------ on a grid
+    def _plan(self, s: np.ndarray) -> "_GridPlan":
+        """The per-frequency coefficients of one grid (cached; a few grids kept)."""
+        key = s.tobytes()
+        plan = self._plans.get(key)
+        if plan is None:
+            plan = _GridPlan.build(self, s)
+            if len(self._plans) >= 4:
+                self._plans.pop(next(iter(self._plans)))
+            self._plans[key] = plan
+        return plan
+
+    def _monomials(self, dG: np.ndarray, dC: np.ndarray) -> np.ndarray:
+        """Per-sample monomials ``(n_samples, n_mono)`` in the order of :attr:`monomials`."""
+        out = np.ones((dG.shape[0], 1))
+        dCs = dC * self.solver.s0            # s/s0 · (s0·ΔC): both factors of order one
+        for j, opts in enumerate(self._options):
+            out = np.concatenate([out if o == 0 else out * (dG if o == 1 else dCs)[:, j, None]
+                                  for o in opts], axis=1)
+        return out
+
+    def _expansions(self, s, dG, dC):
+        """Yield ``(lo, hi, re, im)``: the determinant and numerator polynomials of
+        samples ``lo … hi−1`` as real and imaginary parts, each ``(hi−lo, n_poly, n_f)``.
+
+        One real matrix product per block of samples, zero-padded to the fixed
+        height set by :data:`GEMM_ELEMENTS`, with BLAS single-threaded: every call
+        has the same shapes, so a sample's values do not depend on which other
+        samples share its block (chunking-independent, bit for bit).
+        """
+        plan = self._plan(s)
+        n = dG.shape[0]
+        rows = plan.rows
+        with _single_threaded_blas():
+            for lo in range(0, n, rows):
+                hi = min(n, lo + rows)
+                mono = np.zeros((rows, plan.weights.shape[0]))
+                mono[:hi - lo] = self._monomials(dG[lo:hi], dC[lo:hi])
+                out = (mono @ plan.weights)[:hi - lo].reshape(hi - lo, 2, len(_POLYS), s.size)
+                yield lo, hi, out[:, 0], out[:, 1]
+
+    def on_grid(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray) -> BatchGains:
+        """Gains of every sample at every ``s`` [rad/s]; arrays ``(n_samples, n_f)``."""
+        s = np.atleast_1d(np.asarray(s, dtype=complex))
+        n = dG.shape[0]
+        H = np.empty((n, 4, s.size), dtype=complex)
+        for lo, hi, re, im in self._expansions(s, dG, dC):
+            poly = re + 1j * im
+            with np.errstate(divide="ignore", invalid="ignore"):
+                H[lo:hi] = poly[:, 1:] / poly[:, :1]
+        return self._gains(np.moveaxis(H.reshape(n, 2, 2, s.size), -1, 1))
+
+    def cmrr_on_grid(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray,
+                     ref: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+        """Single-ended and balanced CMRR [dB] of every sample at every ``s`` [rad/s].
+
+        Parameters
+        ----------
+        s : ndarray (n_f,)
+            Complex frequencies [rad/s].
+        dG, dC : ndarray (n_samples, rank)
+            From :meth:`deltas`.
+        ref : ndarray (n_samples,)
+            Each sample's |A_dm(0)|: a common-mode gain below 1e-12 of it is zero
+            and its CMRR +inf (DESIGN.md §2).
+
+        Returns
+        -------
+        cmrr_se_db, cmrr_db : ndarray (n_samples, n_f)
+            CMRR [dB] (+inf where infinite, NaN where the sample is singular);
+            ``cmrr_db`` is None without a balanced output.
+        """
+        s = np.atleast_1d(np.asarray(s, dtype=complex))
+        n = dG.shape[0]
+        cse = np.empty((n, s.size))
+        cbal = np.empty((n, s.size)) if self.balanced else None
+        tiny = (ZERO_GAIN_RATIO * np.asarray(ref, dtype=float)) ** 2
+        pairs = [(cse, 3, 4)] + ([(cbal, 1, 2)] if self.balanced else [])
+        for lo, hi, re, im in self._expansions(s, dG, dC):
+            power = np.multiply(re, re)           # |polynomial|², (rows, n_poly, n_f)
+            power += im * im
+            floor = tiny[lo:hi, None] * power[:, 0]
+            bad = ~(np.isfinite(power[:, 0]) & (power[:, 0] > 0))
+            for out, num, den in pairs:
+                val = out[lo:hi]
+                with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+                    np.divide(power[:, num], power[:, den], out=val)
+                    np.log10(val, out=val)
+                val *= 10.0
+                zero = power[:, den] <= floor
+                if zero.any():
+                    val[zero] = np.inf
+                if bad.any():
+                    val[bad] = np.nan
+        return cse, cbal
+
+    # ------------------------------------------------------------ one s per sample
+    def paired(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray) -> BatchGains:
+        """Gains of sample i at its own ``s[i]`` [rad/s]; arrays ``(n_samples,)``.
+
+        Each sample's own network ``G + s·C`` is solved directly (LU), one point at
+        a time in a batch, so results never depend on how many points a chunk holds.
+        """
+        s = np.atleast_1d(np.asarray(s, dtype=complex))
+        H = np.zeros((s.size, 2, 2), dtype=complex)
+        for lo in range(0, s.size, SOLVE_BLOCK):          # bounds the n × n matrices held
+            sl = slice(lo, lo + SOLVE_BLOCK)
+            sb = s[sl]
+            D = dG[sl] + sb[:, None] * dC[sl]
+            A = np.multiply(sb[:, None, None], self._C[None])
+            A += self._G
+            for j, entries in enumerate(self._stamp_entries):
+                for p, q, w in entries:
+                    A[:, p, q] += w * D[:, j]
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+                try:
+                    x = np.linalg.solve(A, np.broadcast_to(self._rhs, (sb.size,) + self._rhs.shape))
+                except np.linalg.LinAlgError:     # a singular sample: reported by the caller
+                    x = np.full((sb.size,) + self._rhs.shape, np.nan, dtype=complex)
+            for p, terms in enumerate(self._row_entries):
+                for k, w in terms:
+                    H[sl, p] += w * x[:, k]
+        return self._gains(H)
+
+
+@dataclass(frozen=True)
+class _GridPlan:
+    """Per-frequency weights of the grid expansion (see the module notes).
+
+    ``weights`` is real, ``(n_mono, 2·n_poly·n_f)``: columns are (real part,
+    imaginary part) × polynomial × frequency; ``rows`` the fixed block height.
+    """
+
+    weights: np.ndarray
+    rows: int
+
+    @classmethod
+    def build(cls, ev: BatchEvaluator, s: np.ndarray) -> "_GridPlan":
+        r, n_f = ev.rank, s.size
+        H = ev.solver.response(s)                       # (n_f, 2 + r, 2 + r)
+        minors = {}
+        for subset in itertools.product((False, True), repeat=r):
+            idx = [2 + k for k in range(r) if subset[k]]
+            c = np.empty((len(_POLYS), n_f), dtype=complex)
+            if not idx:
+                c[0] = 1.0
+                c[1:] = H[:, :2, :2].reshape(n_f, 4).T
+            else:
+                c[0] = np.linalg.det(H[:, idx][:, :, idx])
+                for i, (a, b) in enumerate(((0, 0), (0, 1), (1, 0), (1, 1))):
+                    c[1 + i] = np.linalg.det(H[:, idx + [a]][:, :, idx + [b]])
+            minors[subset] = c
+        sp = s / ev.solver.s0
+        w = np.empty((len(ev.monomials), len(_POLYS), n_f), dtype=complex)
+        for m, mono in enumerate(ev.monomials):
+            subset = tuple(o > 0 for o in mono)
+            w[m] = minors[subset] * sp ** sum(o == 2 for o in mono)
+        weights = np.ascontiguousarray(
+            np.stack([w.real, w.imag], axis=1).reshape(len(ev.monomials), -1))
+        rows = int(min(256, max(8, GEMM_ELEMENTS // max(n_f, 1))))
+        return cls(weights, rows)
