@@ -105,7 +105,7 @@ def test_measurement_uploaded_in_the_page_shows_markers_and_residual(tmp_path):
         if driver is not None:
             driver.quit()
         stop_server(proc)
-    # oracle: the CSV file's data rows (freqpair.measured reads them; counted by the reader)
+    # oracle: the CSV file's data rows (freqpair.studies.measured reads them; counted by the reader)
     assert n == len(read_measurement(MEASURED, "cmrr"))
     assert errors == []
 

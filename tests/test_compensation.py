@@ -1,4 +1,4 @@
-"""Compensation solving (freqpair.compensation) and the compensate subcommand."""
+"""Compensation solving (freqpair.analysis.compensation) and the compensate subcommand."""
 import json
 import math
 import subprocess

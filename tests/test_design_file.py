@@ -206,3 +206,21 @@ def test_decimal_comma_is_refused_not_read_as_a_thousands_separator(builtin_desi
     # 15 kΩ (thousands separator) would silently give a value 10× off — refuse it
     with pytest.raises(freqpair.DesignError, match=r"load\.resistance = '1,5 k'.*decimal point"):
         freqpair.replace_value(builtin_design, "load.resistance", "1,5 k")
+
+
+def test_a_design_pickles_by_reference_and_leaves_the_schema_alone(builtin_design):
+    # common practice: designs travel to cluster workers by pickle (cloudpickle there);
+    # every section class must be found by its module and name, not rebuilt by value —
+    # a class rebuilt on unpickling would overwrite the field table of the original
+    import pickle
+
+    import cloudpickle
+
+    from freqpair.design import fields
+    d = freqpair.replace_value(builtin_design, "pair.degeneration", 100.0)
+    for dumps in (pickle.dumps, cloudpickle.dumps):
+        again = pickle.loads(dumps(d))
+        assert again == d and type(again.pair) is type(d.pair)
+    assert pickle.loads(pickle.dumps(fields.REQUIRED)) is fields.REQUIRED
+    with pytest.raises(DesignError, match="pair.beta: missing required key"):
+        parse_design(with_value(BASE, "pair.beta", ...))

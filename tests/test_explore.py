@@ -1,4 +1,4 @@
-"""freqpair.explore: the explorer's data, checked against independent code paths."""
+"""freqpair.views.explore: the explorer's data, checked against independent code paths."""
 from __future__ import annotations
 
 import math

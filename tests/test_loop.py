@@ -1,4 +1,4 @@
-"""Loop gain, margins, closed loop and step response (freqpair.loop)."""
+"""Loop gain, margins, closed loop and step response (freqpair.analysis.loop)."""
 import json
 import math
 import subprocess

@@ -236,7 +236,7 @@ def test_strict_html_check_rejects_broken_pages(bad):
 
 
 def test_report_shows_hand_rows_when_the_hand_module_exists(builtin_design):
-    # oracle: freqpair.hand's own table — the report shows each of its labels
+    # oracle: freqpair.analysis.hand's own table — the report shows each of its labels
     from freqpair.analysis import hand
     a = freqpair.analyze(builtin_design)
     html = report_html(a)

@@ -141,3 +141,18 @@ def test_loop_metric_without_feedback_is_a_one_line_error():
     d = freqpair.design_from_text(BUILTIN_EXAMPLE)
     with pytest.raises(FreqpairError, match=r"phase_margin_deg.*\[feedback\]"):
         sweep(d, [SweepAxis("tail.capacitance", [1e-12])], metrics=("phase_margin_deg",))
+
+
+def test_target_message_names_the_option_of_the_face_in_use():
+    # oracle: common practice — a message tells the user what to type where they are:
+    # "--want largest" on the command line, want='largest' in Python
+    from freqpair.studies.targets import TargetError, solve_target
+    args = ["examples/npn_resistor_rc_tail.toml", "--vary", "tail.capacitance=0.1p:1p",
+            "--metric", "cmrr_se_db", "--min", "0"]
+    run = subprocess.run([sys.executable, "-m", "freqpair.cli", "target", *args],
+                         capture_output=True, text=True, cwd=ROOT)
+    assert run.returncode == 2 and run.stdout == ""
+    assert "--want largest or --want smallest" in run.stderr and "want='" not in run.stderr
+    d = freqpair.load_design(ROOT / "examples" / "npn_resistor_rc_tail.toml")
+    with pytest.raises(TargetError, match="want='largest'"):
+        solve_target(d, "tail.capacitance", "cmrr_se_db", 0.0, "min", (0.1e-12, 1e-12))

@@ -8,7 +8,7 @@
   margin drops below the target (the largest β_f that still meets it).
 
 Each scans a log grid over the bounds on the exact loop (margins as in
-:mod:`freqpair.loop`), then refines the first crossing of the target with
+:mod:`freqpair.analysis.loop`), then refines the first crossing of the target with
 ``brentq``. When the target cannot be met inside the bounds, a
 :class:`CompensationError` says so in one line ("cannot reach ... within [a, b]").
 """

@@ -3,7 +3,8 @@
 Frequencies such as f_3dB, the unity-gain frequency and the CMRR corner are
 "the lowest frequency where a curve reaches a level". They are bracketed on a
 search grid chosen from the network's natural frequencies (not the plotting
-grid) and refined with :func:`scipy.optimize.brentq` on the exact response.
+grid) and refined with Brent's method (:func:`freqpair.analysis.roots.brent_root`) on the
+exact response.
 """
 from __future__ import annotations
 
@@ -11,7 +12,7 @@ import math
 from typing import Callable
 
 import numpy as np
-from scipy.optimize import brentq
+from freqpair.analysis.roots import brent_root
 
 __all__ = ["search_grid", "lowest_crossing", "db", "DB_3"]
 
@@ -85,5 +86,5 @@ def lowest_crossing(curve_db: Callable[[np.ndarray], np.ndarray], level_db: floa
         return float(grid_hz[i] if abs(ga) <= abs(gb) else grid_hz[i + 1])
     if ga == 0 or gb == 0:
         return float(grid_hz[i] if ga == 0 else grid_hz[i + 1])
-    x = brentq(g, a, b, xtol=1e-14, rtol=1e-14, maxiter=200)
+    x = brent_root(g, a, b, xtol=1e-14, rtol=1e-14, maxiter=200)
     return 10.0 ** x

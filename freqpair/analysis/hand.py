@@ -113,7 +113,7 @@ def hand_table(analysis) -> list[HandRow]:
 
     Parameters
     ----------
-    analysis : freqpair.analysis.Analysis
+    analysis : freqpair.analysis.result.Analysis
 
     Returns
     -------
@@ -305,7 +305,7 @@ def _two_stage_rows(analysis, r_1: float, c_1: float, a1_se: float,
 
     Parameters
     ----------
-    analysis : freqpair.analysis.Analysis
+    analysis : freqpair.analysis.result.Analysis
         A design with a ``[second_stage]``.
     r_1 : float
         First-stage output resistance at o2 [Ω]: r_o2∥r_o4 (mirror load) or R_L∥r_o.

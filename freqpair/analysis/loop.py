@@ -354,7 +354,7 @@ def loop_analysis(analysis) -> LoopResult | None:
 
     Parameters
     ----------
-    analysis : freqpair.analysis.Analysis
+    analysis : freqpair.analysis.result.Analysis
 
     Returns
     -------
@@ -410,7 +410,7 @@ def step_response(analysis, t_s=None):
 
     Parameters
     ----------
-    analysis : freqpair.analysis.Analysis
+    analysis : freqpair.analysis.result.Analysis
     t_s : array_like, optional
         Times [s]; default a grid chosen from the closed-loop poles.
 

@@ -69,7 +69,7 @@ def pole_zero_table(analysis, name: str | None = None, top: int = 3,
 
     Parameters
     ----------
-    analysis : freqpair.analysis.Analysis
+    analysis : freqpair.analysis.result.Analysis
     name : str, optional
         Response name; default the primary gain.
     top : int

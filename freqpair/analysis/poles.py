@@ -2,7 +2,7 @@
 
 Poles are the finite generalized eigenvalues of the descriptor pencil
 (G, −C); zeros of one gain those of the augmented pencil
-[[G, b], [l, 0]] against [[C, 0], [0, 0]] (see :mod:`freqpair.network`).
+[[G, b], [l, 0]] against [[C, 0], [0, 0]] (see :mod:`freqpair.circuit.network`).
 A mode that the excitation does not reach, or the output does not see (the
 common-mode modes in a matched pair's differential path), appears both as a
 pole and as a zero at the same place: such coincident pairs are reported as
@@ -227,7 +227,7 @@ def response_zpk(analysis, name: str | None = None) -> ResponseZPK:
 
     Parameters
     ----------
-    analysis : freqpair.analysis.Analysis
+    analysis : freqpair.analysis.result.Analysis
     name : str, optional
         ``"adm"``, ``"adm_se"``, ``"acm_se"``, ``"acm_dm"`` (also ``"acm_cm"``,
         ``"a_total"``, ``"acm_total"``); default the primary gain.

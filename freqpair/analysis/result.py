@@ -66,7 +66,7 @@ class Analysis:
         return self.responses.at(grid.f_hz)
 
     def __str__(self) -> str:
-        """The terminal summary (:func:`freqpair.summary.format_summary`)."""
+        """The terminal summary (:func:`freqpair.analysis.summary.format_summary`)."""
         from freqpair.analysis.summary import format_summary
         return format_summary(self)
 
@@ -103,7 +103,7 @@ class Analysis:
         return out
 
     def loop(self):
-        """Loop results (:class:`freqpair.loop.LoopResult`), None without [feedback]."""
+        """Loop results (:class:`freqpair.analysis.loop.LoopResult`), None without [feedback]."""
         from freqpair.analysis.loop import loop_analysis
         return loop_analysis(self)
 

@@ -186,7 +186,7 @@ def root_sensitivities(analysis, name: str, kind: str, roots) -> list:
 
     Parameters
     ----------
-    analysis : freqpair.analysis.Analysis
+    analysis : freqpair.analysis.result.Analysis
     name : str
         Response name (for zeros; poles are shared by every gain).
     kind : str
@@ -228,7 +228,7 @@ def pole_sensitivities(analysis, name: str | None = None, kind: str = "pole") ->
 
     Parameters
     ----------
-    analysis : freqpair.analysis.Analysis
+    analysis : freqpair.analysis.result.Analysis
     name : str, optional
         Response name; default the primary gain.
     kind : str

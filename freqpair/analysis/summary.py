@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from html import escape
 
 from freqpair.design.quantities import format_si
 
@@ -322,6 +321,7 @@ def operating_point_rows(analysis) -> list[tuple[str, str]]:
 
 def _html_table(rows) -> str:
     """Two-column HTML table (label, right-aligned value), cells escaped."""
+    from html import escape
     body = "".join(f'<tr><td>{escape(str(a))}</td><td class="num">{escape(str(b))}</td></tr>'
                    for a, b in rows)
     return f'<table class="fp">{body}</table>'
@@ -335,6 +335,7 @@ def compact_html(analysis) -> str:
     str
         One ``<div>`` with the design name, the kinds and the metric table.
     """
+    from html import escape
     d = analysis.design
     rows = [(r.label, r.text) for r in metric_rows(analysis)]
     kinds = f"pair {d.pair.type}, load {d.load.type}, tail {d.tail.type}"

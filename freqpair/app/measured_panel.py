@@ -1,10 +1,10 @@
 """The explorer's measurement overlay: a CSV loader, a kind selector, markers and residual.
 
 :func:`measurement_from_upload` turns a browser upload (base64 text) into a
-:class:`freqpair.measured.Measurement` without Bokeh. :class:`MeasuredPanel`
+:class:`freqpair.studies.measured.Measurement` without Bokeh. :class:`MeasuredPanel`
 owns the widgets, the data source ``measured_source`` and the renderers it adds
 to the gain and CMRR figures (markers, and the residual on a secondary axis); the
-explorer hands it each new :func:`freqpair.explore.explore` result.
+explorer hands it each new :func:`freqpair.views.explore.explore` result.
 """
 from __future__ import annotations
 
@@ -55,7 +55,7 @@ def measurement_from_upload(text: str, name: str, kind: str):
 
     Returns
     -------
-    freqpair.measured.Measurement
+    freqpair.studies.measured.Measurement
 
     Raises
     ------

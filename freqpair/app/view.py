@@ -1,6 +1,6 @@
 """The explorer's view: widgets, figures and one ``update`` wired to all controls.
 
-All numbers come from :func:`freqpair.explore.explore`; this module only
+All numbers come from :func:`freqpair.views.explore.explore`; this module only
 copies them into data sources. :func:`make_doc` builds a whole document (the
 directory app's ``main.py`` calls it; tests call it on a fresh Document).
 """
@@ -100,7 +100,7 @@ class Explorer:
     design : Design
         The last design that analysed without error (what is on screen).
     data : dict
-        The last :func:`~freqpair.explore.explore` result on screen.
+        The last :func:`~freqpair.views.explore.explore` result on screen.
     """
 
     def __init__(self, doc, design, note: str = ""):
@@ -431,7 +431,7 @@ class Explorer:
 
         Up to :data:`MAX_PINS` snapshots are kept; one more drops the oldest
         (with a note). Each is named in the legends by what differs from the
-        design on screen (:func:`freqpair.explore.design_difference`).
+        design on screen (:func:`freqpair.views.explore.design_difference`).
         """
         self._pin_count += 1
         note = ""

@@ -1,7 +1,7 @@
 """Device models: bias current (and terminal voltages) → small-signal values.
 
 Bipolar: hybrid-pi. MOS: square law in saturation. Both return a
-:class:`SmallSignal` of one common shape, which :mod:`freqpair.stamps` turns
+:class:`SmallSignal` of one common shape, which :mod:`freqpair.circuit.stamps` turns
 into network elements. pnp/pmos devices use the same small-signal model as
 npn/nmos (the hybrid-pi and the saturated-MOS model are polarity-free); their
 keys are magnitudes (V_EB, |V_th|).
@@ -16,8 +16,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-import scipy.constants as sc
-
+from freqpair.circuit.constants import BOLTZMANN_J_PER_K, ELEMENTARY_CHARGE_C
 from freqpair.design.errors import BiasError
 
 __all__ = ["thermal_voltage", "SmallSignal", "bipolar_small_signal", "mos_small_signal",
@@ -25,8 +24,8 @@ __all__ = ["thermal_voltage", "SmallSignal", "bipolar_small_signal", "mos_small_
 
 
 def thermal_voltage(temperature_k: float) -> float:
-    """Thermal voltage V_T = k·T/q [V] from CODATA constants (scipy.constants)."""
-    return sc.k * temperature_k / sc.e
+    """Thermal voltage V_T = k·T/q [V] (k, q: the exact SI values, as CODATA gives them)."""
+    return BOLTZMANN_J_PER_K * temperature_k / ELEMENTARY_CHARGE_C
 
 
 @dataclass(frozen=True)
@@ -71,7 +70,7 @@ def bipolar_small_signal(dev, ic: float, vcb: float, temperature_k: float,
 
     Parameters
     ----------
-    dev : freqpair.design.Npn or Pnp
+    dev : freqpair.design.schema.Npn or Pnp
         Device keys.
     ic : float
         Collector current [A].

@@ -308,7 +308,7 @@ class FrequencySolver:
     each frequency is then an upper-triangular solve, vectorised over all
     frequencies (n Python steps, not n_f), followed by one step of iterative
     refinement against the original ``G + sC``. Every method runs BLAS on one
-    thread (:func:`freqpair.blas_threads.single_blas_thread`).
+    thread (:func:`freqpair.circuit.blas_threads.single_blas_thread`).
     """
 
     def __init__(self, G, C, B, L):

@@ -61,7 +61,7 @@ def build_stage(design) -> Stage:
 
     Parameters
     ----------
-    design : freqpair.design.Design
+    design : freqpair.design.schema.Design
 
     Returns
     -------

@@ -1,4 +1,4 @@
-"""Stamp a device's small-signal model into a :class:`~freqpair.network.Network`."""
+"""Stamp a device's small-signal model into a :class:`~freqpair.circuit.network.Network`."""
 from __future__ import annotations
 
 from freqpair.circuit.devices import SmallSignal

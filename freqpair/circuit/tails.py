@@ -134,7 +134,7 @@ def tail_devices(design, v_tail_node: float, tail_node: str = "t") -> list[TailD
 
     Parameters
     ----------
-    design : freqpair.design.Design
+    design : freqpair.design.schema.Design
         With a transistor tail ("mirror", "degenerated" or "cascode").
     v_tail_node : float
         DC voltage of the tail node [V] (the pair's common emitter/source).
@@ -186,7 +186,7 @@ def tail_norton(design, devices: list[TailDevice], pair_capacitance: float = 0.0
 
     Returns
     -------
-    freqpair.stage.TailNorton
+    freqpair.circuit.tails.TailNorton
         ``resistance`` [Ω] at DC (infinite when the sub-network draws no DC
         current, e.g. λ = 0), ``capacitance`` [F] (see the module notes),
         ``pair_capacitance`` [F] as given.
@@ -214,8 +214,8 @@ def stamp_transistor_tail(net: Network, design, op, tail_node: str):
     ----------
     net : Network
         The stage's network (pair already stamped).
-    design : freqpair.design.Design
-    op : freqpair.bias.PairOperatingPoint
+    design : freqpair.design.schema.Design
+    op : freqpair.circuit.bias.PairOperatingPoint
         The pair's bias (gives the tail node voltage and the pair's C_pi/C_gs).
     tail_node : str
 

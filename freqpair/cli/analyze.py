@@ -9,7 +9,6 @@ __all__ = ["register", "cmd_analyze"]
 def cmd_analyze(args) -> int:
     from freqpair.analysis.result import analyze
     from freqpair.cli.common import _load, print_json
-    from freqpair.analysis.summary import format_summary
     design = _load(args.design)
     result = analyze(design)
     if args.csv:
@@ -18,6 +17,7 @@ def cmd_analyze(args) -> int:
     if args.json:
         print_json(result.to_json())
     else:
+        from freqpair.analysis.summary import format_summary
         print(format_summary(result))
     return 0
 

@@ -45,7 +45,7 @@ def _unit(key: str) -> str:
 
 
 def format_fit(result, measurement) -> str:
-    """Readable summary of a :class:`~freqpair.fit.FitResult`."""
+    """Readable summary of a :class:`~freqpair.studies.fit.FitResult`."""
     from freqpair.studies.measured import KINDS
     from freqpair.design.quantities import format_si as _si
 

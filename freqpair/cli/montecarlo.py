@@ -10,8 +10,6 @@ to their nominal value.
 """
 from __future__ import annotations
 
-import numpy as np
-
 from freqpair.cli.common import CliError, _num, add_scheduler_option, key_spec, print_json, \
     run_with_progress
 
@@ -51,6 +49,7 @@ def _fmt(v, unit):
 
 
 def cmd_montecarlo(args) -> int:
+    import numpy as np
     from freqpair.cli.common import _load
     from freqpair.design.files import atomic_write_text
     from freqpair.studies.montecarlo import MonteCarloSpec, default_grid, run_montecarlo

@@ -26,7 +26,7 @@ __all__ = ["register", "parse_axis"]
 
 
 def parse_axis(text: str):
-    """``KEY=START:STOP:N[:log]`` or ``KEY=V1,V2,…`` → :class:`~freqpair.sweep.SweepAxis`."""
+    """``KEY=START:STOP:N[:log]`` or ``KEY=V1,V2,…`` → :class:`~freqpair.studies.sweep.SweepAxis`."""
     from freqpair.studies.sweep import SweepAxis
     key, spec = key_spec(text, "--vary", "KEY=START:STOP:N[:log] or KEY=V1,V2,...")
     if ":" in spec:

@@ -37,7 +37,7 @@ def cmd_target(args) -> int:
     if args.over:
         return _target_over(args, design, key, kind, bound, (lo, hi), at_hz)
     res = solve_target(design, key, args.metric, bound, kind, (lo, hi), at_hz=at_hz,
-                       want=args.want)
+                       want=args.want, face="cli")
     if args.json:
         print_json(res.to_json())
     else:
@@ -58,7 +58,7 @@ def _target_over(args, design, key, kind, bound, bounds, at_hz) -> int:
     res = run_with_progress(args, math.prod(len(a.values) for a in axes), "target",
                             lambda ex, cb: solve_target_grid(
                                 design, axes, key, args.metric, bound, kind, bounds, at_hz,
-                                args.want, progress=cb, executor=ex))
+                                args.want, progress=cb, executor=ex, face="cli"))
     sys.stdout.write(res.to_json_text() + "\n" if args.json else res.to_csv())
     return 0
 

@@ -15,7 +15,6 @@ import tomllib
 from pathlib import Path
 from typing import Any
 
-import tomli_w
 
 from freqpair.design.errors import DesignError
 from freqpair.design.schema import Design, design_to_dict, parse_design
@@ -57,6 +56,7 @@ def load_design(path: str | os.PathLike) -> Design:
 
 def save_design(design: Design, path: str | os.PathLike) -> None:
     """Write a design as TOML, atomically (temporary file, then rename)."""
+    import tomli_w
     atomic_write_text(path, tomli_w.dumps(design_to_dict(design)))
 
 
@@ -88,6 +88,7 @@ def save_design_table(data: dict[str, Any], path: str | os.PathLike) -> Design:
         The validated design.
     """
     design = parse_design(data)
+    import tomli_w
     atomic_write_text(path, tomli_w.dumps(data))
     return design
 

@@ -8,8 +8,6 @@ from __future__ import annotations
 
 import math
 
-from quantiphy import Quantity
-
 __all__ = ["parse_si", "format_si"]
 
 # Unit spellings accepted per physical kind (empty string = bare number).
@@ -27,6 +25,7 @@ UNIT_ALIASES: dict[str, set[str]] = {
     "cap_per_area": {"", "F/m2", "F/m^2", "F/m²"},
     "cap_per_length": {"", "F/m"},
     "per_volt": {"", "1/V", "/V"},
+    "sqrt_volt": {"", "V^0.5", "V^(1/2)", "√V", "sqrt(V)"},
     "none": {""},
 }
 
@@ -62,6 +61,7 @@ def parse_si(value, *, field: str, unit: str = "none") -> float:
         if "," in text:
             # a decimal comma ("1,5 k") would be read as a thousands separator (15 k)
             raise ValueError(f"{lead}use a decimal point, not a comma")
+        from quantiphy import Quantity     # imported when a string needs it
         try:
             if unit == "kelvin":   # quantiphy reads a lone "K" as kilo: "300 K" is 300 kelvin
                 with Quantity.prefs(input_sf=Quantity.get_pref("input_sf").replace("K", "")):

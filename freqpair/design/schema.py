@@ -1,310 +1,351 @@
 """The design schema: validated, immutable design objects and one-line errors.
 
-A design is a tree of frozen pydantic models (one per TOML table). Every
-validation problem becomes a :class:`~freqpair.errors.DesignError` whose
-message is one line naming the dotted key and the value, e.g.::
+A design is a tree of immutable sections, one per TOML table (DESIGN.md §3,
+§3a and §7). Every validation problem becomes a
+:class:`~freqpair.design.errors.DesignError` whose message is one line naming
+the dotted key and the value, e.g.::
 
     pair.beta = -5: must be greater than 0
 
 Numbers may be plain SI values or SI strings (``"2 pF"``, ``"10kΩ"``);
-see :func:`freqpair.quantities.parse_si`.
+see :func:`freqpair.design.quantities.parse_si`.
 """
 from __future__ import annotations
 
-from functools import partial
-from typing import Annotated, Any, Literal, Optional, Union
-
-from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationError,
-                      model_validator)
+from typing import Any, Optional
 
 from freqpair.design.errors import DesignError
-from freqpair.design.quantities import parse_si
+from freqpair.design.fields import (
+    KeyedError,
+    Section,
+    build,
+    names,
+    num,
+    num_list,
+    section,
+    tagged,
+    tagged_list,
+    text,
+    to_table,
+    whole,
+)
 
-__all__ = ["Design", "parse_design", "design_to_dict", "COMPLEMENT"]
+__all__ = ["Design", "parse_design", "design_to_dict", "COMPLEMENT", "stage_nodes",
+           "Npn", "Pnp", "Nmos", "Pmos", "Element"]
 
-
-def _si(value, unit):
-    return parse_si(value, field="", unit=unit)
-
-
-def _num(unit: str, *, minimum: str | None = "gt"):
-    """Annotated float type: SI parsing with a unit kind and a sign rule."""
-    constraint = {"gt": Field(gt=0), "ge": Field(ge=0), None: Field()}[minimum]
-    return Annotated[float, BeforeValidator(partial(_si, unit=unit)), constraint]
-
-
-Positive = partial(_num, minimum="gt")
-Absentable = partial(_num, minimum="ge")   # zero means "absent"
-Signed = partial(_num, minimum=None)
-
-
-class _Section(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False,
-                              populate_by_name=True)
+def _mismatch(x: float):
+    return None if -1.0 < x < 1.0 else "relative mismatch must lie between -1 and 1"
 
 
 # ---------------------------------------------------------------- devices
-class _Bipolar(_Section):
-    beta: Positive("none")
-    early_voltage: Positive("volt")
-    vbe: Positive("volt") = 0.7
-    base_resistance: Absentable("ohm") = 0.0
-    cje: Absentable("farad") = 0.0
-    transit_time: Optional[Absentable("second")] = None
-    ft: Optional[Positive("hertz")] = None
-    cjc0: Absentable("farad") = 0.0
-    phi_c: Positive("volt") = 0.75
-    m_c: Absentable("none") = 0.33
-    ccs: Absentable("farad") = 0.0
+class _Device(Section):
+    TAG = ""
 
-    @model_validator(mode="after")
-    def _one_of_tf_ft(self):
+    @property
+    def type(self) -> str:
+        return self.TAG
+class _Bipolar(_Device):
+    beta = num("none")
+    early_voltage = num("volt")
+    vbe = num("volt", "gt", 0.7)
+    base_resistance = num("ohm", "ge", 0.0)
+    cje = num("farad", "ge", 0.0)
+    transit_time = num("second", "ge", None)
+    ft = num("hertz", "gt", None)
+    cjc0 = num("farad", "ge", 0.0)
+    phi_c = num("volt", "gt", 0.75)
+    m_c = num("none", "ge", 0.33)
+    ccs = num("farad", "ge", 0.0)
+    flicker_corner = num("hertz", "ge", 0.0)
+
+    def _validate(self):
         if self.transit_time is not None and self.ft is not None:
-            raise ValueError(f"ft = {self.ft:g} Hz: give transit_time or ft, not both "
-                             f"(transit_time = {self.transit_time:g} s is also set)")
-        return self
+            raise KeyedError("ft", f"give transit_time or ft, not both (transit_time = "
+                                   f"{self.transit_time:g} s is also set)", self.ft)
 
     @property
     def is_bipolar(self) -> bool:
         return True
-
-
-class Npn(_Bipolar):
-    type: Literal["npn"]
-
-
-class Pnp(_Bipolar):
-    type: Literal["pnp"]
-
-
-class _Mos(_Section):
-    mobility_cox: Positive("transconductance_param")
-    width: Positive("metre")
-    length: Positive("metre")
-    threshold: Positive("volt")
-    lambda_: Absentable("per_volt") = Field(alias="lambda")
-    cox: Absentable("cap_per_area") = 0.0
-    overlap_cap: Absentable("cap_per_length") = 0.0
-    cdb: Absentable("farad") = 0.0
+class _Mos(_Device):
+    mobility_cox = num("transconductance_param")
+    width = num("metre")
+    length = num("metre")
+    threshold = num("volt")
+    lambda_ = num("per_volt", "ge", alias="lambda")
+    cox = num("cap_per_area", "ge", 0.0)
+    overlap_cap = num("cap_per_length", "ge", 0.0)
+    cdb = num("farad", "ge", 0.0)
+    body_effect = num("sqrt_volt", "ge", 0.0)
+    surface_potential = num("volt", "gt", 0.7)
+    csb = num("farad", "ge", 0.0)
+    flicker_corner = num("hertz", "ge", 0.0)
+    noise_gamma = num("none", "gt", 2.0 / 3.0)
 
     @property
     def is_bipolar(self) -> bool:
         return False
-
-
+class Npn(_Bipolar):
+    TAG = "npn"
+class Pnp(_Bipolar):
+    TAG = "pnp"
 class Nmos(_Mos):
-    type: Literal["nmos"]
-
-
+    TAG = "nmos"
 class Pmos(_Mos):
-    type: Literal["pmos"]
+    TAG = "pmos"
 
 
-Device = Annotated[Union[Npn, Pnp, Nmos, Pmos], Field(discriminator="type")]
+DEVICES = {"npn": Npn, "pnp": Pnp, "nmos": Nmos, "pmos": Pmos}
 
 #: polarity complement used for active loads
 COMPLEMENT = {"npn": "pnp", "pnp": "npn", "nmos": "pmos", "pmos": "nmos"}
 
 
+# cascode devices of a cascoded pair (§7c): device keys plus the bias voltage of
+# their bases/gates (absolute, AC ground); ``type`` defaults to the pair's own
+def _cascode_class(base):
+    class Cascode(base):
+        bias = num("volt", None)
+    Cascode.__name__ = Cascode.__qualname__ = f"Cascode{base.__name__}"
+    Cascode.__module__ = __name__
+    return Cascode
+
+
+CascodeNpn, CascodePnp, CascodeNmos, CascodePmos = (_cascode_class(c)
+                                                    for c in (Npn, Pnp, Nmos, Pmos))
+CASCODES = {"npn": CascodeNpn, "pnp": CascodePnp, "nmos": CascodeNmos, "pmos": CascodePmos}
+
+
+# the pair devices: device keys plus degeneration (§7a) and an optional cascode (§7c)
+def _pair_class(base):
+    class Pair(base):
+        degeneration = num("ohm", "ge", 0.0)
+        cascode = tagged(CASCODES, None, default_tag="@self")
+
+        def _validate(self):
+            super()._validate()
+            if self.cascode is not None and self.cascode.type != self.type:
+                raise KeyedError("cascode.type", f"a {self.type} pair needs a {self.type} "
+                                                 "cascode", self.cascode.type)
+    Pair.__name__ = Pair.__qualname__ = f"Pair{base.__name__}"
+    Pair.__module__ = __name__
+    return Pair
+
+
+# module-level names, so that pickling finds the classes by reference
+PairNpn, PairPnp, PairNmos, PairPmos = (_pair_class(c) for c in (Npn, Pnp, Nmos, Pmos))
+PAIRS = {"npn": PairNpn, "pnp": PairPnp, "nmos": PairNmos, "pmos": PairPmos}
+
+
 # ---------------------------------------------------------------- sections
-class Supply(_Section):
-    positive: Signed("volt")
-    negative: Signed("volt")
+class Supply(Section):
+    positive = num("volt", None)
+    negative = num("volt", None)
 
-    @model_validator(mode="after")
-    def _ordered(self):
+    def _validate(self):
         if not self.positive > self.negative:
-            raise ValueError(f"positive = {self.positive:g} V: must be above "
-                             f"negative = {self.negative:g} V")
-        return self
+            raise KeyedError("positive", f"must be above negative = {self.negative:g} V",
+                             self.positive)
+class Bias(Section):
+    tail_current = num("ampere")
+    input_common_mode = num("volt", None, 0.0)
+    temperature = num("kelvin", "gt", 300.0)
+class ResistorLoad(Section):
+    TAG = "resistor"
+    resistance = num("ohm")
+    capacitance = num("farad", "ge", 0.0)
+
+    @property
+    def type(self):
+        return self.TAG
+class MirrorLoad(Section):
+    TAG = "mirror"
+    capacitance = num("farad", "ge", 0.0)
+    device = tagged(DEVICES)
+
+    @property
+    def type(self):
+        return self.TAG
 
 
-class Bias(_Section):
-    tail_current: Positive("ampere")
-    input_common_mode: Signed("volt") = 0.0
-    temperature: Positive("kelvin") = 300.0
+LOADS = {"resistor": ResistorLoad, "mirror": MirrorLoad}
+class _Tail(Section):
+    @property
+    def type(self):
+        return self.TAG
+class IdealTail(_Tail):
+    TAG = "ideal"
+class NortonTail(_Tail):
+    TAG = "norton"
+    resistance = num("ohm")
+    capacitance = num("farad", "ge", 0.0)
+class MirrorTail(_Tail):
+    TAG = "mirror"
+    device = tagged(DEVICES)
+    extra_capacitance = num("farad", "ge", 0.0)
+class DegeneratedTail(_Tail):
+    TAG = "degenerated"
+    device = tagged(DEVICES)
+    degeneration = num("ohm")
+    extra_capacitance = num("farad", "ge", 0.0)
+class CascodeTail(_Tail):
+    TAG = "cascode"
+    device = tagged(DEVICES)
+    extra_capacitance = num("farad", "ge", 0.0)
 
 
-class ResistorLoad(_Section):
-    type: Literal["resistor"]
-    resistance: Positive("ohm")
-    capacitance: Absentable("farad") = 0.0
+TAILS = {"ideal": IdealTail, "norton": NortonTail, "mirror": MirrorTail,
+         "degenerated": DegeneratedTail, "cascode": CascodeTail}
+class Source(Section):
+    resistance = num("ohm", "ge", 0.0)
+class Mismatch(Section):
+    load = num("none", None, 0.0, check=_mismatch)
+    gm = num("none", None, 0.0, check=_mismatch)
+class FactorFeedback(Section):
+    """A frequency-independent feedback factor β_f (DESIGN.md §2)."""
+
+    TAG = "factor"
+    factor = num("none")
+
+    @property
+    def type(self):
+        return self.TAG
+class DividerFeedback(Section):
+    """A resistor divider R_f (∥ C_f) over R_g (∥ C_g) (DESIGN.md §7e)."""
+
+    TAG = "divider"
+    series_resistance = num("ohm")
+    series_capacitance = num("farad", "ge", 0.0)
+    shunt_resistance = num("ohm")
+    shunt_capacitance = num("farad", "ge", 0.0)
+
+    @property
+    def type(self):
+        return self.TAG
+
+    @property
+    def factor(self) -> float:
+        """β at DC: R_g/(R_f + R_g)."""
+        return self.shunt_resistance / (self.series_resistance + self.shunt_resistance)
 
 
-class MirrorLoad(_Section):
-    type: Literal["mirror"]
-    capacitance: Absentable("farad") = 0.0
-    device: Device
+FEEDBACKS = {"factor": FactorFeedback, "divider": DividerFeedback}
+class Sweep(Section):
+    start = num("hertz", "gt", 1.0)
+    stop = num("hertz", "gt", 10e9)
+    points_per_decade = whole(50, bounds=(1, 10_000))
 
-
-Load = Annotated[Union[ResistorLoad, MirrorLoad], Field(discriminator="type")]
-
-
-class IdealTail(_Section):
-    type: Literal["ideal"]
-
-
-class NortonTail(_Section):
-    type: Literal["norton"]
-    resistance: Positive("ohm")
-    capacitance: Absentable("farad") = 0.0
-
-
-class MirrorTail(_Section):
-    type: Literal["mirror"]
-    device: Device
-    extra_capacitance: Absentable("farad") = 0.0
-
-
-class DegeneratedTail(_Section):
-    type: Literal["degenerated"]
-    device: Device
-    degeneration: Positive("ohm")
-    extra_capacitance: Absentable("farad") = 0.0
-
-
-class CascodeTail(_Section):
-    type: Literal["cascode"]
-    device: Device
-    extra_capacitance: Absentable("farad") = 0.0
-
-
-Tail = Annotated[Union[IdealTail, NortonTail, MirrorTail, DegeneratedTail, CascodeTail],
-                 Field(discriminator="type")]
-
-
-class Source(_Section):
-    resistance: Absentable("ohm") = 0.0
-
-
-def _mismatch_range(value):
-    value = parse_si(value, field="", unit="none")
-    if not -1.0 < value < 1.0:
-        raise ValueError("relative mismatch must lie between -1 and 1")
-    return value
-
-
-Mismatch_ = Annotated[float, BeforeValidator(_mismatch_range)]
-
-
-class Mismatch(_Section):
-    load: Mismatch_ = 0.0
-    gm: Mismatch_ = 0.0
-
-
-class Feedback(_Section):
-    factor: Positive("none")
-
-
-class Sweep(_Section):
-    start: Positive("hertz") = 1.0
-    stop: Positive("hertz") = 10e9
-    points_per_decade: Annotated[int, Field(gt=0, le=10_000)] = 50
-
-    @model_validator(mode="after")
-    def _ordered(self):
+    def _validate(self):
         if not self.stop > self.start:
-            raise ValueError(f"stop = {self.stop:g} Hz: must be above start = {self.start:g} Hz")
-        return self
+            raise KeyedError("stop", f"must be above start = {self.start:g} Hz", self.stop)
+class SecondStage(Section):
+    gm = num("siemens")
+    output_resistance = num("ohm")
+    input_capacitance = num("farad", "ge", 0.0)
+    load_capacitance = num("farad", "ge", 0.0)
+    miller_capacitance = num("farad", "ge", 0.0)
+    nulling_resistance = num("ohm", "ge", 0.0)
 
 
-class SecondStage(_Section):
-    gm: Positive("siemens")
-    output_resistance: Positive("ohm")
-    input_capacitance: Absentable("farad") = 0.0
-    load_capacitance: Absentable("farad") = 0.0
-    miller_capacitance: Absentable("farad") = 0.0
-    nulling_resistance: Absentable("ohm") = 0.0
+def _element_name(name: str):
+    if not name.strip():
+        return "must not be empty"
+    if name.strip().isdigit():
+        return "must not be a number (element.N means the N-th element)"
+    if "." in name:
+        return "must not contain '.' (it names the element in dotted keys)"
+    return None
+class _Element(Section):
+    TAG_KEY = "kind"
+    nodes = names(2)
+    name = text(None, check=_element_name)
+
+    @property
+    def kind(self) -> str:
+        return self.TAG
+class ResistorElement(_Element):
+    TAG = "resistor"
+    value = num("ohm")
+class CapacitorElement(_Element):
+    TAG = "capacitor"
+    value = num("farad", "ge")
+class TransconductanceElement(_Element):
+    TAG = "transconductance"
+    value = num("siemens", None)
+    control = names(2)
 
 
-class Design(_Section):
-    """A whole differential stage design (see DESIGN.md §3 for the keys)."""
+ELEMENTS = {"resistor": ResistorElement, "capacitor": CapacitorElement,
+            "transconductance": TransconductanceElement}
+Element = _Element
 
-    name: str = ""
-    supply: Supply
-    bias: Bias
-    pair: Device
-    load: Load
-    tail: Tail
-    source: Source = Source()
-    mismatch: Mismatch = Mismatch()
-    feedback: Optional[Feedback] = None
-    sweep: Sweep = Sweep()
-    second_stage: Optional[SecondStage] = None
 
-    @model_validator(mode="after")
-    def _polarities(self):
+def _band(values):
+    a, b = values
+    return None if b > a else f"start {a:g} Hz must be below stop {b:g} Hz"
+class Noise(Section):
+    """Spot frequencies [Hz] and the integration band [Hz] of the noise (DESIGN.md §7h)."""
+
+    spot_frequencies = num_list("hertz", "gt", (1e3,))
+    band = num_list("hertz", "gt", (10.0, 100e3), length=2, check=_band)
+
+
+# ---------------------------------------------------------------- the design
+def stage_nodes(design) -> list[str]:
+    """The stage's node names, as added elements may name them (DESIGN.md §7d)."""
+    out = ["in1", "in2", "b1", "b2", "o1", "o2", "t", "ground", "vpos", "vneg"]
+    if design.pair.degeneration > 0:
+        out += ["e1", "e2"]
+    if design.pair.cascode is not None:
+        out += ["c1", "c2"]
+    if design.second_stage is not None:
+        out.append("out")
+    return out
+class Design(Section):
+    """A whole differential stage design (see DESIGN.md §3, §3a and §7 for the keys)."""
+
+    name = text("")
+    supply = section(Supply)
+    bias = section(Bias)
+    pair = tagged(PAIRS)
+    load = tagged(LOADS)
+    tail = tagged(TAILS)
+    source = section(Source, Source())
+    mismatch = section(Mismatch, Mismatch())
+    feedback = tagged(FEEDBACKS, None, default_tag="factor")
+    sweep = section(Sweep, Sweep())
+    second_stage = section(SecondStage, None)
+    element = tagged_list(ELEMENTS, "kind", ())
+    noise = section(Noise, Noise())
+
+    def _validate(self):
         if isinstance(self.load, MirrorLoad):
             want = COMPLEMENT[self.pair.type]
             if self.load.device.type != want:
-                raise _KeyedError("load.device.type", self.load.device.type,
-                                  f"a {self.pair.type} pair needs a {want} mirror load")
+                raise KeyedError("load.device.type", f"a {self.pair.type} pair needs a "
+                                                     f"{want} mirror load", self.load.device.type)
         if isinstance(self.tail, (MirrorTail, DegeneratedTail, CascodeTail)):
             if self.tail.device.type != self.pair.type:
-                raise _KeyedError("tail.device.type", self.tail.device.type,
-                                  f"a {self.pair.type} pair needs a {self.pair.type} tail device")
-        return self
-
-
-class _KeyedError(ValueError):
-    def __init__(self, key, value, why):
-        super().__init__(f"{key} = {value!r}: {why}")
-
-
-# ---------------------------------------------------------------- errors
-_TAGS = {"npn", "pnp", "nmos", "pmos", "resistor", "mirror", "ideal", "norton",
-         "degenerated", "cascode"}
-
-_MESSAGES = {
-    "missing": "missing required key",
-    "extra_forbidden": "unknown key",
-    "greater_than": "must be greater than 0",
-    "greater_than_equal": "must be 0 or more (0 means absent)",
-    "less_than_equal": "too large",
-    "finite_number": "must be finite",
-    "int_type": "must be a whole number",
-    "int_parsing": "must be a whole number",
-    "int_from_float": "must be a whole number",
-    "string_type": "must be a string",
-    "model_type": "must be a table",
-    "model_attributes_type": "must be a table",
-}
-
-
-def _input_repr(value) -> str:
-    if isinstance(value, dict):
-        return "{…}"
-    text = repr(value)
-    return text if len(text) <= 60 else text[:57] + "..."
-
-
-def _one_line(exc: ValidationError) -> str:
-    errs = exc.errors(include_url=False)
-    # an unknown key (often a misspelt one) explains a "missing" one: report it first
-    err = next((e for e in errs if e["type"] == "extra_forbidden"), errs[0])
-    loc = [str(p) for p in err["loc"] if not (isinstance(p, str) and p in _TAGS)]
-    key = ".".join(loc)
-    kind = err["type"]
-    msg = err.get("msg", "")
-    if kind == "value_error":
-        msg = msg.removeprefix("Value error, ")
-        if msg.startswith(("load.", "tail.")) and " = " in msg:   # already keyed
-            return msg
-    elif kind == "union_tag_invalid":
-        tags = err.get("ctx", {}).get("expected_tags", "")
-        return f"{key}.type = {err['input'].get('type')!r}: must be one of {tags}"
-    elif kind == "union_tag_not_found":
-        return f"{key}.type: missing required key"
-    else:
-        msg = _MESSAGES.get(kind, msg)
-    if kind in ("missing",):
-        return f"{key}: {msg}"
-    if kind == "value_error" and isinstance(err["input"], dict):
-        head = msg.split(" = ", 1)[0]
-        if " = " in msg and head.isidentifier() and head in err["input"]:   # "ft = 1e9: …"
-            return f"{key}.{msg}" if key else msg
-        return f"{key or 'design'}: {msg}"
-    return f"{key} = {_input_repr(err['input'])}: {msg}"
+                raise KeyedError("tail.device.type", f"a {self.pair.type} pair needs a "
+                                                     f"{self.pair.type} tail device",
+                                 self.tail.device.type)
+        nodes = stage_nodes(self)
+        seen = set()
+        for i, el in enumerate(self.element):
+            for role in ("nodes", "control") if isinstance(el, TransconductanceElement) \
+                    else ("nodes",):
+                pair = getattr(el, role)
+                for node in pair:
+                    if node not in nodes:
+                        raise KeyedError(f"element.{i}.{role}", f"unknown node {node!r}; this "
+                                         f"stage's nodes are {', '.join(nodes)}", list(pair))
+                if role == "nodes" and pair[0] == pair[1]:
+                    raise KeyedError(f"element.{i}.nodes", "the two nodes must differ",
+                                     list(pair))
+            if el.name is not None:
+                if el.name in seen:
+                    raise KeyedError(f"element.{i}.name", "another element has this name",
+                                     el.name)
+                seen.add(el.name)
 
 
 # ---------------------------------------------------------------- parsing
@@ -317,13 +358,11 @@ def parse_design(data: dict[str, Any]) -> Design:
         One line naming the key and the value.
     """
     try:
-        return Design.model_validate(data)
-    except ValidationError as exc:
-        raise DesignError(_one_line(exc)) from None
+        return build(Design, data)
+    except KeyedError as exc:
+        raise DesignError(str(exc)) from None
 
 
 def design_to_dict(design: Design) -> dict[str, Any]:
     """Plain-dict form of a design (SI floats), suitable for TOML or JSON."""
-    return design.model_dump(mode="json", by_alias=True, exclude_none=True)
-
-
+    return to_table(design)

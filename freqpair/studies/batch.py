@@ -11,7 +11,7 @@ sample's pencil is
 
 with one column of U, V per distinct pattern (R and C on the same node pair
 share one). The nominal pencil is reduced once (QZ, as in
-:class:`~freqpair.network.FrequencySolver`) for the right-hand sides ``[B, U]``
+:class:`~freqpair.circuit.network.FrequencySolver`) for the right-hand sides ``[B, U]``
 and the outputs ``[L; Vᵀ]``, which gives at each frequency
 
     H = H0 − P · (I + D·K)⁻¹ · D · Q,   H0 = L A⁻¹ B, P = L A⁻¹ U,
@@ -109,7 +109,7 @@ class BatchEvaluator:
 
     Parameters
     ----------
-    design : freqpair.design.Design
+    design : freqpair.design.schema.Design
         The nominal design.
     keys : sequence of str
         The design keys that vary (a subset of :data:`BATCH_KEYS`).

@@ -1,8 +1,8 @@
 """A grid of design points: one or two swept design values, run in chunks, tabulated.
 
-Shared by the parameter sweep (:mod:`freqpair.sweep`) and the target solved over
-a grid (:mod:`freqpair.target_grid`): the grid indices, the design at one
-index, the chunked run on an executor (:mod:`freqpair.executors`) and the
+Shared by the parameter sweep (:mod:`freqpair.studies.sweep`) and the target solved over
+a grid (:mod:`freqpair.studies.target_grid`): the grid indices, the design at one
+index, the chunked run on an executor (:mod:`freqpair.studies.executors`) and the
 table of rows with its CSV and JSON texts.
 """
 from __future__ import annotations

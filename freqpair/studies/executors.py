@@ -1,7 +1,7 @@
 """Where chunked work runs: in this process, or on a Dask cluster.
 
 Sweeps, targets over grids and Monte Carlo split their work into chunks, each
-a pure function call (e.g. :func:`freqpair.montecarlo.run_chunk`). An
+a pure function call (e.g. :func:`freqpair.studies.montecarlo.run_chunk`). An
 executor runs those calls and hands the results back **in chunk order**,
 whatever order they finish in, so a run gives the same answer on any
 executor. Two executors share one method, :meth:`map_chunks`:

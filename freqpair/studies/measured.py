@@ -380,7 +380,7 @@ def model_response(responses, kind: str, f_hz) -> np.ndarray:
 
     Parameters
     ----------
-    responses : freqpair.responses.StageResponses
+    responses : freqpair.analysis.responses.StageResponses
     kind : str
         One of :data:`KINDS`.
     f_hz : array_like
@@ -469,7 +469,7 @@ def overlay(analysis, measurement: Measurement) -> Overlay:
 
     Parameters
     ----------
-    analysis : freqpair.analysis.Analysis
+    analysis : freqpair.analysis.result.Analysis
         (or anything with a ``responses`` attribute, a StageResponses)
     measurement : Measurement
 

@@ -2,7 +2,7 @@
 
 A :class:`MonteCarloSpec` gives a spread per design key; :func:`run_montecarlo`
 draws ``n`` sampled designs and evaluates them all in batches
-(:class:`~freqpair.batch.BatchEvaluator`), chunk by chunk so memory stays
+(:class:`~freqpair.studies.batch.BatchEvaluator`), chunk by chunk so memory stays
 bounded.
 
 Spreads (``width`` is a fraction in both cases):
@@ -524,7 +524,7 @@ def run_montecarlo(design, spec: MonteCarloSpec, n: int, seed: int, f_hz=None,
     progress : callable, optional
         Called with the number of samples finished after each chunk.
     executor : None, Executor, distributed.Client or str, optional
-        Where the chunks run (:mod:`freqpair.executors`): None for this
+        Where the chunks run (:mod:`freqpair.studies.executors`): None for this
         process (default), a client or a scheduler address for a Dask
         cluster. The results are identical on every executor.
 

@@ -1,8 +1,8 @@
 """Parameter sweeps: one or two design values over a range → a table of metrics.
 
 Each point is the design with the swept values replaced
-(:func:`freqpair.design.replace_value`, fully validated) and analysed with
-:func:`freqpair.analysis.analyze`. A point that cannot be analysed (e.g. the
+(:func:`freqpair.design.keys.replace_value`, fully validated) and analysed with
+:func:`freqpair.analysis.result.analyze`. A point that cannot be analysed (e.g. the
 bias saturates) keeps its one-line error in the table instead of stopping the
 sweep. The engine is a pure function returning a frozen :class:`SweepResult`;
 progress is reported through an optional callback (the command line draws a
@@ -138,7 +138,7 @@ def sweep(design, axes, metrics=DEFAULT_METRICS, curves: bool = False, f_hz=None
     axes : list of SweepAxis
         One or two axes (the grid is their outer product).
     metrics : sequence of str
-        Names from :data:`freqpair.targets.METRICS`.
+        Names from :data:`freqpair.studies.targets.METRICS`.
     curves : bool
         Also keep A_dm and CMRR curves on ``f_hz`` (default: the design's sweep).
     f_hz : array_like, optional
@@ -149,7 +149,7 @@ def sweep(design, axes, metrics=DEFAULT_METRICS, curves: bool = False, f_hz=None
     progress : callable, optional
         Called with the number of points finished (after each chunk).
     executor : None, Executor, distributed.Client or str, optional
-        Where the points run (:mod:`freqpair.executors`): None for this
+        Where the points run (:mod:`freqpair.studies.executors`): None for this
         process (default), a client or a scheduler address for a Dask cluster.
     chunk : int
         Most grid points per chunk (task); on a cluster fewer, so that every

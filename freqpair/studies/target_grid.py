@@ -2,8 +2,8 @@
 
 E.g. the largest tail capacitance keeping the single-ended CMRR ≥ 80 dB at
 100 kHz, for each of several tail currents and temperatures. Each grid point
-is an independent :func:`freqpair.targets.solve_target`; the points are
-chunked and run on an executor (:mod:`freqpair.executors`), locally or on a
+is an independent :func:`freqpair.studies.targets.solve_target`; the points are
+chunked and run on an executor (:mod:`freqpair.studies.executors`), locally or on a
 Dask cluster, with identical results.
 """
 from __future__ import annotations
@@ -65,7 +65,7 @@ class TargetGridResult(GridTable):
                 "kind": self.kind, "at_hz": self.at_hz, "rows": self.to_rows()}
 
 
-def target_points(design, axes, key, metric, bound, kind, bounds, at_hz, want,
+def target_points(design, axes, key, metric, bound, kind, bounds, at_hz, want, face,
                   points) -> list:
     """Solve the target at some grid points: a pure function (one chunk).
 
@@ -78,7 +78,8 @@ def target_points(design, axes, key, metric, bound, kind, bounds, at_hz, want,
     out = []
     for idx in points:
         try:
-            r = solve_target(design_at(design, axes, idx), key, metric, bound, kind, bounds, at_hz, want)
+            r = solve_target(design_at(design, axes, idx), key, metric, bound, kind, bounds,
+                             at_hz, want, face=face)
             out.append((idx, r.value, r.metric_value, None))
         except FreqpairError as exc:
             out.append((idx, None, None, str(exc)))
@@ -89,7 +90,7 @@ def solve_target_grid(design, axes, key: str, metric: str, bound: float, kind: s
                       bounds=(None, None), at_hz: float | None = None,
                       want: str | None = None,
                       progress: Callable[[int], None] | None = None,
-                      executor=None, chunk: int = 4) -> TargetGridResult:
+                      executor=None, chunk: int = 4, face: str = "library") -> TargetGridResult:
     """Solve ``key`` for ``metric`` vs ``bound`` at every point of a grid.
 
     Parameters
@@ -98,14 +99,16 @@ def solve_target_grid(design, axes, key: str, metric: str, bound: float, kind: s
     axes : list of SweepAxis
         One or two grid axes (design keys other than ``key``).
     key, metric, bound, kind, bounds, at_hz, want
-        As in :func:`freqpair.targets.solve_target` (bound in dB or Hz,
+        As in :func:`freqpair.studies.targets.solve_target` (bound in dB or Hz,
         ``at_hz`` in Hz).
     progress : callable, optional
         Called with the number of grid points finished (after each chunk).
     executor : None, Executor, distributed.Client or str, optional
-        Where the points run (:mod:`freqpair.executors`); default this process.
+        Where the points run (:mod:`freqpair.studies.executors`); default this process.
     chunk : int
         Most grid points per chunk.
+    face : {"library", "cli"}
+        How messages name options (see :func:`freqpair.studies.targets.solve_target`).
 
     Returns
     -------
@@ -132,7 +135,7 @@ def solve_target_grid(design, axes, key: str, metric: str, bound: float, kind: s
     if a is None or b is None or not (math.isfinite(a) and math.isfinite(b) and b > a):
         raise TargetError(f"bounds = {bounds!r}: need a finite range [a, b] with b > a")
     entries = run_grid(target_points, (design, axes, key, metric, bound, kind, bounds, at_hz,
-                                       want), axes, chunk, executor, progress)
+                                       want, face), axes, chunk, executor, progress)
     shape = tuple(len(ax.values) for ax in axes)
     value = np.full(shape, np.nan)
     mval = np.full(shape, np.nan)

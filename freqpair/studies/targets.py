@@ -43,8 +43,15 @@ class TargetError(FreqpairError, ValueError):
     """A target that cannot be reached or a bad target request."""
 
 
+def want_hint(face: str = "library") -> str:
+    """How to ask for one edge of a feasible range, as the user's face spells it."""
+    if face == "cli":
+        return "give --want largest or --want smallest"
+    return "give want='largest' or want='smallest'"
+
+
 def metric_value(result, metric: str, at_hz: float | None = None) -> float | None:
-    """A metric of an :class:`~freqpair.analysis.Analysis`, optionally at ``at_hz`` [Hz].
+    """A metric of an :class:`~freqpair.analysis.result.Analysis`, optionally at ``at_hz`` [Hz].
 
     Returns the DC/contract value (None where infinite or undefined), or, with
     ``at_hz``, the exact magnitude at that frequency [dB].
@@ -129,7 +136,8 @@ def _describe(metric, kind, bound, at_hz):
 
 def solve_target(design, key: str, metric: str, bound: float, kind: str = "min",
                  bounds=(None, None), at_hz: float | None = None, want: str | None = None,
-                 scan_points: int = 13, rtol: float = 1e-9) -> TargetResult:
+                 scan_points: int = 13, rtol: float = 1e-9,
+                 face: str = "library") -> TargetResult:
     """Solve the design value ``key`` so that ``metric`` meets ``bound``.
 
     Parameters
@@ -155,6 +163,9 @@ def solve_target(design, key: str, metric: str, bound: float, kind: str = "min",
         Points of the bracketing scan.
     rtol : float
         Relative tolerance on the design value.
+    face : {"library", "cli"}
+        Who asks: messages name the option as that face spells it
+        (``want='largest'`` in Python, ``--want largest`` on the command line).
 
     Returns
     -------
@@ -216,10 +227,10 @@ def solve_target(design, key: str, metric: str, bound: float, kind: str = "min",
             want = "smallest"
         elif all(ok):
             raise TargetError(f"{what} holds over all of {key} ∈ [{a:g}, {b:g}]; "
-                              "give want='largest' or 'smallest' (or widen the range)")
+                              f"{want_hint(face)} (or widen the range)")
         else:
             raise TargetError(f"{what} holds on several parts of [{a:g}, {b:g}] for {key}; "
-                              "give want='largest' or 'smallest'")
+                              f"{want_hint(face)}")
     order = range(len(xs) - 1, -1, -1) if want == "largest" else range(len(xs))
     i = next(k for k in order if ok[k])
     j = i + 1 if want == "largest" else i - 1

@@ -154,8 +154,8 @@ def editable_values(design: Design) -> list[EditableValue]:
             key = f"{prefix}{name}"
             if isinstance(value, dict):
                 walk(value, key + ".")
-            elif name in ("type", "name") or isinstance(value, (str, bool)):
-                continue
+            elif name in ("type", "name") or isinstance(value, (str, bool, list)):
+                continue        # kinds, names and lists (elements, noise spots) apart
             else:
                 unit, scale = _BY_KEY.get(key) or _UNITS.get(name, ("", "log"))
                 lo, hi = _slider_range(float(value), unit, scale, key)
@@ -364,7 +364,7 @@ def _nan(n):
 
 
 def _pole_zero_points(analysis) -> dict:
-    """Poles and zeros [Hz] of the primary gain (:func:`freqpair.poles.response_zpk`).
+    """Poles and zeros [Hz] of the primary gain (:func:`freqpair.analysis.poles.response_zpk`).
 
     Coincident pole-zero pairs cancel out of the gain and are left out, as in the
     pole-zero table of the reports.
@@ -504,7 +504,7 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None,
         is found on the exact response.
     analysis : Analysis, optional
         A ready :func:`freqpair.analyze` result for ``design``.
-    measurement : freqpair.measured.Measurement, optional
+    measurement : freqpair.studies.measured.Measurement, optional
         A bench measurement to lay over the model (see :func:`measured_view`).
 
     Returns
@@ -603,14 +603,14 @@ def measured_view(analysis, measurement) -> dict:
     Parameters
     ----------
     analysis : Analysis
-    measurement : freqpair.measured.Measurement
+    measurement : freqpair.studies.measured.Measurement
 
     Returns
     -------
     dict
         ``columns``: ``f_hz`` [Hz], ``measured_db``, ``model_db``, ``residual_db``
         (measured − model) [dB] at the measured frequencies (from
-        :func:`freqpair.measured.overlay`); ``kind``, ``label``, ``plot`` (see
+        :func:`freqpair.studies.measured.overlay`); ``kind``, ``label``, ``plot`` (see
         :data:`MEASURED_PLOT`), ``origin`` (file name), ``rms_residual_db``,
         ``max_abs_residual_db`` [dB] and ``rms_residual_deg`` [deg] (None
         without a measured phase).

@@ -1,4 +1,4 @@
-"""Bokeh view of an :class:`~freqpair.measured.Overlay`: measurement, model, residual.
+"""Bokeh view of an :class:`~freqpair.studies.measured.Overlay`: measurement, model, residual.
 
 Bokeh is imported inside the function, so importing this module costs nothing.
 The renderers carry names (``"measured"``, ``"model"``, ``"residual"``,
@@ -15,7 +15,7 @@ def overlay_columns(overlay, quantity: str = "magnitude") -> dict:
 
     Parameters
     ----------
-    overlay : freqpair.measured.Overlay
+    overlay : freqpair.studies.measured.Overlay
     quantity : {"magnitude", "phase"}
         Magnitude [dB] or phase [deg].
 
@@ -46,7 +46,7 @@ def overlay_figure(overlay, quantity: str = "magnitude", *, width: int = 720,
 
     Parameters
     ----------
-    overlay : freqpair.measured.Overlay
+    overlay : freqpair.studies.measured.Overlay
     quantity : {"magnitude", "phase"}
         Magnitude [dB] or phase [deg].
     width, height : int

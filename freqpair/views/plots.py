@@ -1,6 +1,6 @@
 """Bokeh figures of freqpair's curves, fed from ColumnDataSources (lazy Bokeh import).
 
-The figures read the column names of :func:`freqpair.explore.explore`
+The figures read the column names of :func:`freqpair.views.explore.explore`
 (``f_hz``, ``adm_db``, ``adm_deg``, ...), so the browser app and the HTML
 report draw the same pictures from the same data. Every builder returns a
 plain ``bokeh.plotting.figure`` that the caller may restyle (sizes, titles,

@@ -191,10 +191,10 @@ def report_html(analysis, measurement=None) -> str:
 
     Parameters
     ----------
-    analysis : freqpair.analysis.Analysis
-    measurement : freqpair.measured.Measurement, optional
+    analysis : freqpair.analysis.result.Analysis
+    measurement : freqpair.studies.measured.Measurement, optional
         A bench measurement: adds the section "Measurement against the model"
-        (:func:`freqpair.measured.overlay`: residual rms and largest residual
+        (:func:`freqpair.studies.measured.overlay`: residual rms and largest residual
         [dB], overlay plot) and ``measured`` (the overlay's JSON) in the
         embedded data.
 

@@ -1,6 +1,6 @@
 """Bokeh figures for reports: Bode magnitude/phase, CMRR, and overlays of several designs.
 
-The Bode and CMRR figures are the explorer's own (:mod:`freqpair.plots`), fed
+The Bode and CMRR figures are the explorer's own (:mod:`freqpair.views.plots`), fed
 from an analysis instead of the app's data sources, in the same colours.
 Every builder returns plain Bokeh objects (``figure``) that the caller may
 restyle (titles, sizes, colours, ranges) before showing or embedding them.
@@ -18,7 +18,7 @@ from freqpair.analysis.responses import RESPONSE_NAMES
 __all__ = ["PALETTE", "bode_figures", "cmrr_figure", "overlay_figure", "response_label",
            "curve_columns"]
 
-#: freqpair's plot colours, cycled one per design (the scheme of :mod:`freqpair.plots`).
+#: freqpair's plot colours, cycled one per design (the scheme of :mod:`freqpair.views.plots`).
 PALETTE = list(CYCLE)
 
 _SHORT = {"adm": "A_dm (balanced)", "adm_se": "A_dm,se (o2)", "acm_se": "A_cm,se (o2)",
@@ -69,7 +69,7 @@ def curve_columns(analysis, names=None, f_hz=None) -> dict[str, np.ndarray]:
 
 
 def _source(cols: dict):
-    """A ColumnDataSource with the column names of :mod:`freqpair.plots` (``f_hz``, ...)."""
+    """A ColumnDataSource with the column names of :mod:`freqpair.views.plots` (``f_hz``, ...)."""
     from bokeh.models import ColumnDataSource
     data = {("f_hz" if k == "frequency_hz" else k): np.asarray(v, dtype=float)
             for k, v in cols.items()}
@@ -93,11 +93,11 @@ def _legend(fig):
 def bode_figures(analysis, names=None, f_hz=None):
     """Magnitude and phase of the stage's gains (shared frequency axis).
 
-    Built with :func:`freqpair.plots.bode_figure`, the explorer's own figure.
+    Built with :func:`freqpair.views.plots.bode_figure`, the explorer's own figure.
 
     Parameters
     ----------
-    analysis : freqpair.analysis.Analysis
+    analysis : freqpair.analysis.result.Analysis
     names : list of str, optional
         Gains to draw (default: all that exist and are not identically zero).
     f_hz : array_like, optional
@@ -125,7 +125,7 @@ def bode_figures(analysis, names=None, f_hz=None):
 def cmrr_figure(analysis, f_hz=None):
     """CMRR versus frequency [dB], single-ended and (when defined) balanced.
 
-    Built with :func:`freqpair.plots.cmrr_figure`; the CMRR corner is marked.
+    Built with :func:`freqpair.views.plots.cmrr_figure`; the CMRR corner is marked.
 
     Returns
     -------

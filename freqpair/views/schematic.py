@@ -193,7 +193,7 @@ def stage_svg(design, width: int | None = None) -> str:
 
     Parameters
     ----------
-    design : freqpair.design.Design
+    design : freqpair.design.schema.Design
     width : int, optional
         Displayed width [px]; the drawing scales (default: natural size, wider
         with a second stage).
