@@ -40,7 +40,7 @@ def _direct(design, f_hz):
     l1, l2 = n.selector({"o1": 1.0}), n.selector({"o2": 1.0})
     out = []
     for f in np.atleast_1d(f_hz):
-        x = np.linalg.solve(G + 2j * np.pi * f * C, B)
+        x = np.linalg.solve(G + 2j * np.pi * f * C, B[:, :2])      # in1, in2
         dm, cm = x @ np.array([0.5, -0.5]), x @ np.array([1.0, 1.0])
         out.append({"adm": l1 @ dm - l2 @ dm, "adm_se": l2 @ dm, "acm_se": l2 @ cm,
                     "acm_dm": l1 @ cm - l2 @ cm})

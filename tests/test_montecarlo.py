@@ -177,7 +177,7 @@ def _direct_gains(design, f_hz):
     from freqpair.circuit.stage import build_stage
     net = build_stage(design).network
     G, C, B = net.matrices()
-    exc = np.column_stack([B @ [0.5, -0.5], B @ [1.0, 1.0]])          # DM, CM (DESIGN.md §2)
+    exc = np.column_stack([B[:, :2] @ [0.5, -0.5], B[:, :2] @ [1.0, 1.0]])          # DM, CM (DESIGN.md §2)
     rows = np.array([net.selector({"o1": 1.0, "o2": -1.0}), net.selector({"o2": 1.0})])
     return np.array([rows @ sla.solve(G + 2j * np.pi * f * C, exc) for f in f_hz])
 

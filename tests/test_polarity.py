@@ -31,11 +31,14 @@ def stage_dict(pair, load, tail, pos, neg, cm, i_tail=0.5e-3):
 
 
 def _same(a, b):
+    # 1e-8: bipolar C_cs returns to the substrate (vneg) for both polarities
+    # (DESIGN.md §7f), so the mirror-image network is not the same matrix; the
+    # common-mode gains agree to rounding amplified by their cancellation
     for key in KEYS:
         va, vb = getattr(a, key), getattr(b, key)
         assert (va is None) == (vb is None), key
         if va is not None:
-            assert va == pytest.approx(vb, rel=1e-9), key
+            assert va == pytest.approx(vb, rel=1e-8), key
 
 
 def test_pnp_stage_is_mirror_image_of_npn_stage():

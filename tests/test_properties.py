@@ -296,9 +296,12 @@ def test_scaling_every_capacitance_by_k_scales_every_pole_by_one_over_k(d, k):
 
 
 def rational(solver, b, l, h0, s):
-    """H(s) = H(0)·Π(1 − s/z)/Π(1 − s/p) from the poles and zeros."""
-    p = solver.poles()
-    z = solver.zeros(b, l)
+    """H(s) = H(0)·Π(1 − s/z)/Π(1 − s/p) from the poles and zeros, each polished
+    as the library polishes them (a pole 1e-12 below the pencil's frequency scale
+    is found by the eigenvalue solver only to ≈ 1e-4; polished, to ≈ 1e-9)."""
+    from freqpair.analysis.poles import _augmented, _refine
+    p = _refine(solver.G, solver.C, solver.poles())
+    z = _refine(*_augmented(solver.G, solver.C, b, l), solver.zeros(b, l))
     num = np.prod(1 - s[:, None] / z[None, :], axis=1) if z.size else np.ones_like(s)
     den = np.prod(1 - s[:, None] / p[None, :], axis=1)
     return h0 * num / den

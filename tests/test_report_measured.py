@@ -35,7 +35,7 @@ def _direct_cmrr_db(design, f_hz):
     o2 = stage.network.selector({"o2": 1.0})
     out = []
     for f in f_hz:
-        x = np.linalg.solve(G + 2j * np.pi * f * C, B)
+        x = np.linalg.solve(G + 2j * np.pi * f * C, B[:, :2])      # in1, in2
         out.append(20 * math.log10(abs(o2 @ x @ np.array([0.5, -0.5]))
                                    / abs(o2 @ x @ np.array([1.0, 1.0]))))
     return np.array(out)

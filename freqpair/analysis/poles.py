@@ -42,6 +42,8 @@ RESPONSE_LABELS = {
     "acm_cm": "A_cm-cm",
     "a_total": "A_total",
     "acm_total": "A_cm,total",
+    "a_vpos": "A_vpos (positive rail to the single-ended output)",
+    "a_vneg": "A_vneg (negative rail to the single-ended output)",
 }
 
 
@@ -133,15 +135,22 @@ def _refine(A: np.ndarray, E: np.ndarray, roots: np.ndarray, steps: int = 3) -> 
 
     One frequency scale cannot condition roots that span many decades; a few
     inverse-iteration steps at each root restore full relative accuracy. A
-    step that would move a root by more than 1e-3 of its magnitude is refused
-    (it would be converging to a neighbour).
+    step that would move a root by more than 1e-3 of its magnitude, or by more
+    than a quarter of its distance to the nearest other root, is refused (it
+    would be converging to a neighbour: two poles 0.08 % apart were once both
+    polished onto the same value).
     """
     out = np.array(roots, dtype=complex)
     n = A.shape[0]
     ones = np.ones(n)
+    start = out.copy()
     for i, lam0 in enumerate(out):
         if lam0 == 0:
             continue
+        others = np.delete(start, i)
+        reach = 1e-3 * abs(lam0)
+        if others.size:
+            reach = min(reach, 0.25 * float(np.min(np.abs(others - lam0))))
         lam = lam0
         try:
             M = A + lam * E
@@ -152,7 +161,7 @@ def _refine(A: np.ndarray, E: np.ndarray, roots: np.ndarray, steps: int = 3) -> 
                 if den == 0 or not np.isfinite(den):
                     break
                 new = -np.vdot(u, A @ v) / den
-                if not np.isfinite(new) or abs(new - lam0) > 1e-3 * abs(lam0):
+                if not np.isfinite(new) or abs(new - lam0) > reach:
                     break
                 lam = new
                 M = A + lam * E
@@ -179,13 +188,13 @@ def _augmented(G, C, b, l):
     return Ga, Ca
 
 
-def _clean(roots: np.ndarray, s0: float) -> np.ndarray:
-    """Snap roots at the origin to 0 and near-real roots to real; rebuild complex
-    roots as exact conjugate pairs; sort by magnitude."""
+def _clean(roots: np.ndarray, s0: float, snap_origin: bool = True) -> np.ndarray:
+    """Snap roots at the origin to 0 (when ``snap_origin``) and near-real roots to
+    real; rebuild complex roots as exact conjugate pairs; sort by magnitude."""
     out = []
     for r in np.asarray(roots, dtype=complex):
         mag = abs(r)
-        if mag <= ORIGIN_REL_TOL * s0:
+        if snap_origin and mag <= ORIGIN_REL_TOL * s0:
             out.append(0j)
         elif abs(r.imag) <= REAL_REL_TOL * mag:
             out.append(complex(r.real, 0.0))
@@ -253,7 +262,9 @@ def response_zpk(analysis, name: str | None = None) -> ResponseZPK:
     s0 = solver.s0
     l, kind = resp.output_row(name)
     b = resp.excitation(kind)
-    all_poles = _clean(_refine(solver.G, solver.C, solver.poles()), s0)
+    # the DC solve exists (G is regular), so no pole sits at the origin: a slow pole
+    # far below the pencil's scale is kept at its refined value, never snapped to 0
+    all_poles = _clean(_refine(solver.G, solver.C, solver.poles()), s0, snap_origin=False)
 
     # probe points: DC and j·|p| for every pole (and j·s0)
     probe_w = np.unique(np.concatenate([np.abs(all_poles[all_poles != 0]), [s0]]))
@@ -270,7 +281,9 @@ def response_zpk(analysis, name: str | None = None) -> ResponseZPK:
         return result
 
     Ga, Ca = _augmented(solver.G, solver.C, b, l)
-    zeros = _clean(_refine(Ga, Ca, solver.zeros(b, l)), s0)
+    # a zero sits at the origin only when the DC gain is zero (to rounding)
+    dc_zero = abs(h_dc) <= ZERO_GAIN_RATIO * reference
+    zeros = _clean(_refine(Ga, Ca, solver.zeros(b, l)), s0, snap_origin=dc_zero)
     poles, zeros, pairs = _cancel(all_poles, zeros, s0)
     has_origin = bool(np.any(poles == 0) or np.any(zeros == 0))
     if not has_origin and abs(h_dc) > ZERO_GAIN_RATIO * reference:

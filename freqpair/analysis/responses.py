@@ -1,7 +1,9 @@
-"""The stage's gains as functions of frequency (DESIGN.md §2, excitations and outputs).
+"""The stage's gains as functions of frequency (DESIGN.md §2, §7f excitations and outputs).
 
-Excitations: differential ``v_id = v_in1 − v_in2`` (in1 = +½, in2 = −½) and
-common mode ``v_ic`` (in1 = in2 = 1). Outputs: balanced ``v_o1 − v_o2``,
+The network's inputs are the sources ``in1``, ``in2``, ``vpos``, ``vneg`` (in that
+order). Excitations: differential ``v_id = v_in1 − v_in2`` (in1 = +½, in2 = −½),
+common mode ``v_ic`` (in1 = in2 = 1), and each rail alone (``vpos`` = 1 or
+``vneg`` = 1, the inputs at 0). Outputs: balanced ``v_o1 − v_o2``,
 single-ended ``v_o2``, and the second stage's ``out`` when present.
 """
 from __future__ import annotations
@@ -13,7 +15,8 @@ import numpy as np
 from freqpair.circuit.frequency import s_of_hz
 from freqpair.circuit.stage import Stage
 
-__all__ = ["StageResponses", "ResponseSet", "RESPONSE_NAMES", "ZERO_GAIN_RATIO"]
+__all__ = ["StageResponses", "ResponseSet", "RESPONSE_NAMES", "GAIN_NAMES", "RAIL_NAMES",
+           "ZERO_GAIN_RATIO", "EXCITATIONS"]
 
 #: A gain below this fraction of |A_dm(0)| is exactly zero (DESIGN.md §2).
 ZERO_GAIN_RATIO = 1e-12
@@ -26,10 +29,23 @@ RESPONSE_NAMES = {
     "acm_cm": "common-mode to common-mode gain A_cm-cm = (v_o1+v_o2)/2/v_ic",
     "a_total": "overall gain A_total = v_out/v_id (with second stage)",
     "acm_total": "common-mode gain to the second-stage output v_out/v_ic",
+    "a_vpos": "positive-rail gain A_vpos = v_so/v_vpos (single-ended output)",
+    "a_vneg": "negative-rail gain A_vneg = v_so/v_vneg (single-ended output)",
 }
 
-_B_DM = np.array([0.5, -0.5])
-_B_CM = np.array([1.0, 1.0])
+#: The gains of an input signal (DESIGN.md §2), apart from the rails' gains (§7f).
+GAIN_NAMES = ("adm", "adm_se", "acm_se", "acm_dm", "acm_cm", "a_total", "acm_total")
+RAIL_NAMES = ("a_vpos", "a_vneg")
+
+#: Input combinations (columns: in1, in2, vpos, vneg) of each excitation.
+EXCITATIONS = {
+    "dm": np.array([0.5, -0.5, 0.0, 0.0]),
+    "cm": np.array([1.0, 1.0, 0.0, 0.0]),
+    "vpos": np.array([0.0, 0.0, 1.0, 0.0]),
+    "vneg": np.array([0.0, 0.0, 0.0, 1.0]),
+}
+_B_DM = EXCITATIONS["dm"]
+_B_CM = EXCITATIONS["cm"]
 
 
 @dataclass(frozen=True)
@@ -37,7 +53,8 @@ class ResponseSet:
     """Complex gains at a set of frequencies (each an array over frequency).
 
     ``adm``, ``acm_dm`` and ``acm_cm`` are None without a balanced output;
-    ``a_total``, ``acm_total`` are None without a second stage.
+    ``a_total``, ``acm_total`` are None without a second stage. ``a_vpos`` and
+    ``a_vneg`` are the rails' gains to the single-ended output (o2, or ``out``).
     """
 
     f_hz: np.ndarray
@@ -48,6 +65,8 @@ class ResponseSet:
     acm_cm: np.ndarray | None
     a_total: np.ndarray | None
     acm_total: np.ndarray | None
+    a_vpos: np.ndarray | None = None
+    a_vneg: np.ndarray | None = None
 
     def get(self, name: str) -> np.ndarray | None:
         return getattr(self, name)
@@ -82,6 +101,9 @@ class StageResponses:
         cm = H @ _B_CM
         bal = self.stage.balanced
         total = H.shape[1] > 2
+        so = 2 if total else 1                  # the single-ended output's row
+        vpos = H[:, so, 2]
+        vneg = H[:, so, 3]
         return ResponseSet(
             f_hz=np.asarray(f_hz, dtype=float),
             adm=(dm[:, 0] - dm[:, 1]) if bal else None,
@@ -91,6 +113,8 @@ class StageResponses:
             acm_cm=(0.5 * (cm[:, 0] + cm[:, 1])) if bal else None,
             a_total=dm[:, 2] if total else None,
             acm_total=cm[:, 2] if total else None,
+            a_vpos=vpos,
+            a_vneg=vneg,
         )
 
     def at(self, f_hz) -> ResponseSet:
@@ -113,9 +137,8 @@ class StageResponses:
         return value
 
     def excitation(self, kind: str) -> np.ndarray:
-        """Network input vector b for 'dm' or 'cm' excitation."""
-        B = self.solver.B
-        return B @ (_B_DM if kind == "dm" else _B_CM)
+        """Network input vector b for the 'dm', 'cm', 'vpos' or 'vneg' excitation."""
+        return self.solver.B @ EXCITATIONS[kind]
 
     def output_row(self, name: str) -> tuple[np.ndarray, str]:
         """Output row l and the excitation kind for a named gain."""
@@ -128,6 +151,8 @@ class StageResponses:
             "acm_cm": ({"o1": 0.5, "o2": 0.5}, "cm"),
             "a_total": ({self.stage.final_node: 1.0}, "dm"),
             "acm_total": ({self.stage.final_node: 1.0}, "cm"),
+            "a_vpos": ({self.stage.final_node: 1.0}, "vpos"),
+            "a_vneg": ({self.stage.final_node: 1.0}, "vneg"),
         }
         combo, kind = rows[name]
         return net.selector(combo), kind

@@ -20,7 +20,7 @@ from freqpair.circuit.constants import BOLTZMANN_J_PER_K, ELEMENTARY_CHARGE_C
 from freqpair.design.errors import BiasError
 
 __all__ = ["thermal_voltage", "SmallSignal", "bipolar_small_signal", "mos_small_signal",
-           "mos_overdrive", "junction_capacitance"]
+           "mos_overdrive", "junction_capacitance", "body_transconductance"]
 
 
 def thermal_voltage(temperature_k: float) -> float:
@@ -35,7 +35,8 @@ class SmallSignal:
     ``r_in`` is r_pi (infinite for MOS), ``c_in`` C_pi / C_gs (control to
     common terminal), ``c_fb`` C_mu / C_gd (control to output), ``c_out``
     C_cs / C_db (output to AC ground), ``rb`` the series base resistance.
-    ``ro`` may be infinite (λ = 0).
+    ``ro`` may be infinite (λ = 0). ``gmb`` is the MOS body transconductance
+    (0: body effect off) and ``c_sb`` the source–body capacitance.
     """
 
     kind: str          # "bipolar" | "mos"
@@ -47,11 +48,14 @@ class SmallSignal:
     c_fb: float        # [F]
     c_out: float       # [F]
     rb: float = 0.0    # [Ω]
+    gmb: float = 0.0   # [S]
+    c_sb: float = 0.0  # [F]
 
     def scaled_gm(self, factor: float) -> "SmallSignal":
-        """Copy with g_m scaled (mismatch: transconductance only)."""
+        """Copy with g_m (and g_mb) scaled (mismatch: transconductance only)."""
         return SmallSignal(self.kind, self.current, self.gm * factor, self.r_in, self.ro,
-                           self.c_in, self.c_fb, self.c_out, self.rb)
+                           self.c_in, self.c_fb, self.c_out, self.rb, self.gmb * factor,
+                           self.c_sb)
 
 
 def junction_capacitance(c0: float, v_reverse: float, phi: float, m: float, who: str) -> float:
@@ -106,17 +110,40 @@ def mos_overdrive(dev, id_: float) -> float:
     return math.sqrt(2.0 * id_ / (dev.mobility_cox * dev.width / dev.length))
 
 
-def mos_small_signal(dev, id_: float) -> SmallSignal:
+def body_transconductance(dev, gm: float, v_sb: float) -> float:
+    """g_mb = g_m·γ/(2·√(2φ_F + V_SB)) [S] (0 when ``body_effect`` γ is 0).
+
+    ``v_sb`` [V] is the source–body reverse bias |V_S − V_body rail|; the
+    threshold key already holds the body effect at the operating point
+    (DESIGN.md §7b), so only the small-signal g_mb follows from γ here.
+    """
+    gamma = getattr(dev, "body_effect", 0.0)
+    if not gamma:
+        return 0.0
+    return gm * gamma / (2.0 * math.sqrt(dev.surface_potential + abs(v_sb)))
+
+
+def mos_small_signal(dev, id_: float, v_sb: float = 0.0) -> SmallSignal:
     """Square-law saturation values of a MOS device.
+
+    Parameters
+    ----------
+    dev : device keys (nmos/pmos)
+    id_ : float
+        Drain current [A].
+    v_sb : float
+        Source–body reverse bias [V] (for g_mb; DESIGN.md §7b).
 
     Returns
     -------
     SmallSignal
         g_m = sqrt(2·μC_ox·(W/L)·I_D), r_o = 1/(λ·I_D) (∞ for λ = 0),
-        C_gs = (2/3)·W·L·C_ox + W·C_ov, C_gd = W·C_ov, C_db as given.
+        C_gs = (2/3)·W·L·C_ox + W·C_ov, C_gd = W·C_ov, C_db and C_sb as given,
+        g_mb from :func:`body_transconductance`.
     """
     gm = math.sqrt(2.0 * dev.mobility_cox * dev.width / dev.length * id_)
     ro = math.inf if dev.lambda_ == 0 else 1.0 / (dev.lambda_ * id_)
     cgs = 2.0 / 3.0 * dev.width * dev.length * dev.cox + dev.width * dev.overlap_cap
     cgd = dev.width * dev.overlap_cap
-    return SmallSignal("mos", id_, gm, math.inf, ro, cgs, cgd, dev.cdb, 0.0)
+    return SmallSignal("mos", id_, gm, math.inf, ro, cgs, cgd, dev.cdb, 0.0,
+                       body_transconductance(dev, gm, v_sb), getattr(dev, "csb", 0.0))

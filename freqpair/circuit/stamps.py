@@ -30,18 +30,23 @@ def stamp_device(net: Network, name: str, control: str, output: str, common: str
     ss : SmallSignal
         The device's small-signal values (g_m already mismatch-scaled).
     substrate : str
-        Node that C_cs / C_db returns to (AC ground by default).
+        The substrate (bipolar: C_cs returns there) or the body rail (MOS: C_db
+        and C_sb return there, and g_mb is controlled by v_body − v_source).
 
     Returns
     -------
     str
         The internal control node (after r_b), where r_pi, C_pi, C_mu attach.
     """
+    bip = ss.kind == "bipolar"
     inner = series_resistor(net, control, f"{name}.bi", ss.rb, f"{name}.rb")
     net.resistor(inner, common, ss.r_in, f"{name}.rpi")
-    net.capacitor(inner, common, ss.c_in, f"{name}.cpi" if ss.kind == "bipolar" else f"{name}.cgs")
-    net.capacitor(inner, output, ss.c_fb, f"{name}.cmu" if ss.kind == "bipolar" else f"{name}.cgd")
+    net.capacitor(inner, common, ss.c_in, f"{name}.cpi" if bip else f"{name}.cgs")
+    net.capacitor(inner, output, ss.c_fb, f"{name}.cmu" if bip else f"{name}.cgd")
     net.resistor(output, common, ss.ro, f"{name}.ro")
     net.vccs(output, common, inner, common, ss.gm, f"{name}.gm")
-    net.capacitor(output, substrate, ss.c_out, f"{name}.ccs" if ss.kind == "bipolar" else f"{name}.cdb")
+    net.capacitor(output, substrate, ss.c_out, f"{name}.ccs" if bip else f"{name}.cdb")
+    if not bip and substrate != common:
+        net.capacitor(common, substrate, ss.c_sb, f"{name}.csb")
+        net.vccs(output, common, substrate, common, ss.gmb, f"{name}.gmb")
     return inner

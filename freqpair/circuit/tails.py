@@ -7,8 +7,9 @@ tail sub-network alone, which the tool shows to the user.
 Bias (npn/nmos tail hanging from the negative rail; pnp/pmos is the mirror
 image from the positive rail). Heights are measured from the tail's rail:
 
-- every tail device carries I_C = I_D = I_tail; base/gate at AC ground;
-  MOS body effect off;
+- every tail device carries I_C = I_D = I_tail; base/gate at AC ground on
+  the tail's rail (DESIGN.md §7f); a MOS device's body sits on that rail, so
+  g_mb acts where its source is above the rail (degenerated, cascode upper);
 - simple mirror: emitter/source on the rail, base/gate at V_BE (V_GS);
 - degenerated: emitter/source at I_tail·R_degeneration, base/gate one
   V_BE (V_GS) above that;
@@ -115,7 +116,8 @@ def _who(design, role: str) -> str:
     return f"tail.device ({tail.device.type} {word}{extra})"
 
 
-def _device(design, name, role, control, output, common, v_ce, v_cb) -> TailDevice:
+def _device(design, name, role, control, output, common, v_ce, v_cb,
+            v_sb: float = 0.0) -> TailDevice:
     dev = design.tail.device
     i_tail = design.bias.tail_current
     who = _who(design, role)
@@ -124,7 +126,7 @@ def _device(design, name, role, control, output, common, v_ce, v_cb) -> TailDevi
     if dev.is_bipolar:
         ss = bipolar_small_signal(dev, i_tail, v_cb, design.bias.temperature, who=who)
     else:
-        ss = mos_small_signal(dev, i_tail)
+        ss = mos_small_signal(dev, i_tail, v_sb)
         v_cb = None
     return TailDevice(name, role, ss, control, output, common, v_ce, v_cb)
 
@@ -159,26 +161,36 @@ def tail_devices(design, v_tail_node: float, tail_node: str = "t") -> list[TailD
     if tail.type == "degenerated":
         h_e = i_tail * tail.degeneration
         return [_device(design, "tail.q1", "current source", GROUND, tail_node,
-                        INTERNAL_EMITTER, h_t - h_e, h_t - h_e - drop)]
+                        INTERNAL_EMITTER, h_t - h_e, h_t - h_e - drop, v_sb=h_e)]
     if tail.type == "cascode":
         h_x = drop
         lower = _device(design, "tail.q1", "current source", GROUND, INTERNAL_CASCODE,
                         GROUND, h_x, 0.0)
         upper = _device(design, "tail.q2", "cascode", GROUND, tail_node, INTERNAL_CASCODE,
-                        h_t - h_x, h_t - h_x - drop)
+                        h_t - h_x, h_t - h_x - drop, v_sb=h_x)
         return [lower, upper]
     raise BiasError(f"tail.type = {tail.type!r}: not a transistor tail")
 
 
 def stamp_tail_devices(net: Network, design, devices: list[TailDevice],
-                       tail_node: str = "t", extra: bool = True) -> None:
-    """Stamp the tail transistors (and R_degeneration, extra capacitance) into ``net``."""
+                       tail_node: str = "t", extra: bool = True, rail: str = GROUND,
+                       substrate: str = GROUND) -> None:
+    """Stamp the tail transistors (and R_degeneration, extra capacitance) into ``net``.
+
+    ``rail`` is the node of the tail's supply rail (emitters/sources, bases/gates
+    held by their reference, R_degeneration, the extra capacitance and MOS
+    bodies); ``substrate`` where a bipolar device's C_cs returns (DESIGN.md §7f).
+    A node named :data:`GROUND` in a device's terminals stands for ``rail``.
+    """
+    on_rail = (lambda node: rail if node == GROUND else node)
     for d in devices:
-        stamp_device(net, d.name, d.control, d.output, d.common, d.small_signal)
+        sub = substrate if d.small_signal.kind == "bipolar" else rail
+        stamp_device(net, d.name, on_rail(d.control), d.output, on_rail(d.common),
+                     d.small_signal, sub)
     if design.tail.type == "degenerated":
-        net.resistor(INTERNAL_EMITTER, GROUND, design.tail.degeneration, "tail.Rdeg")
+        net.resistor(INTERNAL_EMITTER, rail, design.tail.degeneration, "tail.Rdeg")
     if extra:
-        net.capacitor(tail_node, GROUND, design.tail.extra_capacitance, "tail.Cextra")
+        net.capacitor(tail_node, rail, design.tail.extra_capacitance, "tail.Cextra")
 
 
 def tail_norton(design, devices: list[TailDevice], pair_capacitance: float = 0.0):
@@ -207,7 +219,8 @@ def tail_norton(design, devices: list[TailDevice], pair_capacitance: float = 0.0
     return TailNorton(float(resistance), float(C[k, k]), float(pair_capacitance))
 
 
-def stamp_transistor_tail(net: Network, design, op, tail_node: str):
+def stamp_transistor_tail(net: Network, design, op, tail_node: str, rail: str = GROUND,
+                          substrate: str = GROUND, pair_capacitance: float | None = None):
     """Stamp a transistor tail into the stage network.
 
     Parameters
@@ -218,6 +231,11 @@ def stamp_transistor_tail(net: Network, design, op, tail_node: str):
     op : freqpair.circuit.bias.PairOperatingPoint
         The pair's bias (gives the tail node voltage and the pair's C_pi/C_gs).
     tail_node : str
+    rail, substrate : str
+        Nodes of the tail's rail and of the bipolar substrate (DESIGN.md §7f).
+    pair_capacitance : float, optional
+        The pair's own capacitance at the tail node [F], shown beside the
+        tail's (default 2·C_pi / 2·C_gs).
 
     Returns
     -------
@@ -226,8 +244,10 @@ def stamp_transistor_tail(net: Network, design, op, tail_node: str):
         (list of :class:`TailDevice`), ``summary`` (text lines).
     """
     devices = tail_devices(design, op.v_common, tail_node)
-    stamp_tail_devices(net, design, devices, tail_node)
-    norton = tail_norton(design, devices, pair_capacitance=2.0 * op.small_signal.c_in)
+    stamp_tail_devices(net, design, devices, tail_node, rail=rail, substrate=substrate)
+    if pair_capacitance is None:
+        pair_capacitance = 2.0 * op.small_signal.c_in
+    norton = tail_norton(design, devices, pair_capacitance=pair_capacitance)
     return norton, {"kind": design.tail.type, "devices": devices,
                     "summary": _summary_lines(design, devices)}
 

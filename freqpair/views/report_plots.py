@@ -13,7 +13,7 @@ import numpy as np
 
 from freqpair.analysis.crossings import db
 from freqpair.views.plots import CYCLE
-from freqpair.analysis.responses import RESPONSE_NAMES
+from freqpair.analysis.responses import GAIN_NAMES, RESPONSE_NAMES
 
 __all__ = ["PALETTE", "bode_figures", "cmrr_figure", "overlay_figure", "response_label",
            "curve_columns"]
@@ -23,7 +23,8 @@ PALETTE = list(CYCLE)
 
 _SHORT = {"adm": "A_dm (balanced)", "adm_se": "A_dm,se (o2)", "acm_se": "A_cm,se (o2)",
           "acm_dm": "A_cm-dm (balanced)", "acm_cm": "A_cm-cm", "a_total": "A_total",
-          "acm_total": "A_cm,total"}
+          "acm_total": "A_cm,total", "a_vpos": "A_vpos (V+ → output)",
+          "a_vneg": "A_vneg (V− → output)"}
 
 
 def response_label(name: str) -> str:
@@ -52,7 +53,7 @@ def curve_columns(analysis, names=None, f_hz=None) -> dict[str, np.ndarray]:
     from freqpair.circuit.frequency import FrequencyGrid
     grid = FrequencyGrid(f_hz) if f_hz is not None else None
     r = analysis.curves(grid)
-    names = names or [n for n in RESPONSE_NAMES]
+    names = names or list(GAIN_NAMES)
     cols = {"frequency_hz": r.f_hz}
     for n in names:
         v = r.get(n)
