@@ -34,7 +34,7 @@ def _report(path):
 def _flat_json(data):
     out = {}
     for k, v in data.items():
-        if k in ("name", "operating_point", "poles_hz", "zeros_hz", "hand"):
+        if k in ("name", "operating_point", "poles_hz", "zeros_hz", "hand", "noise"):
             continue   # shown in their own sections of the report
         if isinstance(v, dict):
             out.update({f"{k}.{k2}": v2 for k2, v2 in v.items()})

@@ -5,7 +5,9 @@
 * :func:`nulling_resistor_for` — the smallest ``second_stage.nulling_resistance``
   that does;
 * :func:`feedback_factor_limit` — the feedback factor β_f at which the phase
-  margin drops below the target (the largest β_f that still meets it).
+  margin drops below the target (the largest β_f that still meets it);
+* :func:`series_capacitance_for` — the smallest capacitor C_f across a feedback
+  divider's series resistor that reaches the target (DESIGN.md §7e).
 
 Each scans a log grid over the bounds on the exact loop (margins as in
 :mod:`freqpair.analysis.loop`), then refines the first crossing of the target with
@@ -25,17 +27,18 @@ from freqpair.design.errors import DesignError, FreqpairError
 from freqpair.design.quantities import format_si
 
 __all__ = ["CompensationResult", "CompensationError", "smallest_miller_cap",
-           "nulling_resistor_for", "feedback_factor_limit", "phase_margin_of",
-           "DEFAULT_BOUNDS"]
+           "nulling_resistor_for", "feedback_factor_limit", "series_capacitance_for",
+           "phase_margin_of", "DEFAULT_BOUNDS"]
 
 #: Search bounds used when none are given (SI units).
 DEFAULT_BOUNDS = {
     "second_stage.miller_capacitance": (10e-15, 1e-9),
     "second_stage.nulling_resistance": (0.0, 1e6),
     "feedback.factor": (1e-4, 1.0),
+    "feedback.series_capacitance": (0.0, 1e-9),
 }
 _UNITS = {"second_stage.miller_capacitance": "F", "second_stage.nulling_resistance": "Ω",
-          "feedback.factor": ""}
+          "feedback.factor": "", "feedback.series_capacitance": "F"}
 _GRID_POINTS = 25
 
 
@@ -85,7 +88,7 @@ def _margins(design):
     from freqpair.circuit.stage import build_stage
     resp = StageResponses(build_stage(design))
     sw = design.sweep
-    model = LoopModel(resp, resp.primary, design.feedback.factor, (sw.start, sw.stop))
+    model = LoopModel(resp, resp.primary, design.feedback, (sw.start, sw.stop))
     if model.a0 == 0:
         raise CompensationError("the amplifier's DC gain is zero: there is no loop to "
                                 "compensate")
@@ -120,6 +123,13 @@ def _check(design, key, target, bounds, need_second_stage):
         raise DesignError(f"range = [{lo!r}, {hi!r}]: need 0 ≤ a < b, both finite")
     if key == "feedback.factor" and lo == 0:
         raise DesignError("range: the feedback factor's lower bound must be above 0")
+    kind = design.feedback.type
+    if key == "feedback.factor" and kind != "factor":
+        raise DesignError(f"feedback.type = {kind!r}: a divider has no factor to solve; "
+                          "solve its series_capacitance, or set the resistances")
+    if key.startswith("feedback.series") and kind != "divider":
+        raise DesignError(f"feedback.type = {kind!r}: series_capacitance belongs to a "
+                          "divider (feedback.type = \"divider\")")
     return lo, hi
 
 
@@ -232,3 +242,23 @@ def feedback_factor_limit(design, target_pm_deg: float, bounds=None) -> Compensa
     key = "feedback.factor"
     lo, hi = _check(design, key, target_pm_deg, bounds, False)
     return _solve(design, key, target_pm_deg, lo, hi, rising=False)
+
+
+def series_capacitance_for(design, target_pm_deg: float, bounds=None) -> CompensationResult:
+    """Smallest capacitor C_f [F] across the feedback divider's series resistor
+    giving at least ``target_pm_deg`` phase margin (default range 0 … 1 nF).
+
+    The divider's node capacitance C_g (the stage's input, the wiring) puts a
+    pole in β(s) that eats phase at the crossover; C_f adds the zero that
+    cancels it (exactly at R_f·C_f = R_g·C_g).
+
+    Raises
+    ------
+    CompensationError
+        When no value in the range meets the target.
+    DesignError
+        Without a divider ``[feedback]``.
+    """
+    key = "feedback.series_capacitance"
+    lo, hi = _check(design, key, target_pm_deg, bounds, False)
+    return _solve(design, key, target_pm_deg, lo, hi, rising=True)

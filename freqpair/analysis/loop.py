@@ -1,8 +1,11 @@
 """The stage in a feedback loop: margins, closed-loop response and step response.
 
-Loop gain ``T(s) = β_f · A(s) · sign`` (DESIGN.md §2) where ``A`` is the
+Loop gain ``T(s) = β(s) · A(s) · sign`` (DESIGN.md §2, §7e) where ``A`` is the
 stage's primary gain (balanced A_dm; A_dm,se with a mirror load; A_total with
-a second stage) and ``sign = ±1`` makes ``T(0) > 0`` (negative feedback).
+a second stage), ``sign = ±1`` makes ``T(0) > 0`` (negative feedback) and β is
+the feedback factor β_f, or a divider's β(s) = Z_g/(Z_f + Z_g) with
+Z_f = R_f ∥ 1/(sC_f), Z_g = R_g ∥ 1/(sC_g) — the divider alone, not loaded by
+the stage.
 
 Conventions
 -----------
@@ -15,8 +18,11 @@ Conventions
   multiple of −180°. With several, the one closest to 0 dB (the worst) is
   reported, as python-control does. No crossing → infinite (None/null).
 * Closed loop ``A/(1 + T)`` is solved exactly: the feedback is stamped into
-  the network, ``(G + sign·β_f·b·l + sC) x = b·v_ref``, so its poles are
-  generalized eigenvalues of a real pencil, not roots of a polynomial.
+  the network as one more unknown, the fed-back voltage v_fb, with the
+  divider's node equation (g_f + sC_f)·v_out = (g_f + g_g + s(C_f + C_g))·v_fb
+  (β_f·v_out = v_fb for a factor) and ``(G + sC)·x + sign·b·v_fb = b·v_ref``,
+  so its poles are generalized eigenvalues of a real pencil, not roots of a
+  polynomial.
 * Step response from partial fractions of the closed loop's poles and zeros
   (pole-zero pairs of modes that the input cannot excite or the output cannot
   see are cancelled first); settling time is the last time the response
@@ -35,7 +41,7 @@ from freqpair.circuit.network import FrequencySolver
 from freqpair.analysis.responses import StageResponses
 
 __all__ = ["LoopResult", "LoopCurves", "LoopModel", "loop_analysis", "loop_curves",
-           "step_response", "loop_model", "cancel_pairs"]
+           "step_response", "loop_model", "cancel_pairs", "FeedbackNetwork", "feedback_network"]
 
 #: Relative distance below which a pole and a zero cancel (unexcited/unseen modes).
 CANCEL_RTOL = 1e-7
@@ -54,7 +60,7 @@ class LoopResult:
     Attributes
     ----------
     feedback_factor : float
-        β_f.
+        β at DC (β_f, or R_g/(R_f + R_g) for a divider).
     sign : int
         +1 or −1: the sign that makes T(0) > 0.
     dc_loop_gain_db : float
@@ -129,12 +135,69 @@ class LoopCurves:
         Phase of T, continuous from 0° at DC [deg].
     closed_loop : ndarray of complex
         A/(1+T) [V/V].
+    beta : ndarray of complex
+        β(j2πf) [V/V] (constant for a feedback factor).
     """
 
     f_hz: np.ndarray
     loop_gain: np.ndarray
     loop_phase_deg: np.ndarray
     closed_loop: np.ndarray
+    beta: np.ndarray | None = None
+
+
+@dataclass(frozen=True)
+class FeedbackNetwork:
+    """β(s) = (g_f + sC_f)/(g_f + g_g + s(C_f + C_g)), the unloaded divider; a
+    feedback factor is g_f = β_f, g_g = 1 − β_f, C_f = C_g = 0.
+
+    Attributes
+    ----------
+    g_f, g_g : float
+        Conductances of the series (output → feedback node) and shunt
+        (feedback node → ground) branches [S] (for a factor: β_f and 1 − β_f).
+    c_f, c_g : float
+        Their capacitances [F].
+    """
+
+    g_f: float
+    g_g: float
+    c_f: float = 0.0
+    c_g: float = 0.0
+
+    @property
+    def dc(self) -> float:
+        """β(0)."""
+        return self.g_f / (self.g_f + self.g_g)
+
+    def at(self, s) -> np.ndarray:
+        """β(s) [V/V] at complex frequencies ``s`` [rad/s]."""
+        s = np.asarray(s, dtype=complex)
+        return (self.g_f + s * self.c_f) / (self.g_f + self.g_g + s * (self.c_f + self.c_g))
+
+    @property
+    def zero_rad_s(self) -> np.ndarray:
+        """The zero of β [rad/s]: −1/(R_f·C_f) (none without C_f)."""
+        return np.array([-self.g_f / self.c_f], dtype=complex) if self.c_f > 0 else \
+            np.zeros(0, dtype=complex)
+
+    @property
+    def pole_rad_s(self) -> np.ndarray:
+        """The pole of β [rad/s]: −1/((R_f∥R_g)·(C_f + C_g)) (none without C)."""
+        c = self.c_f + self.c_g
+        return np.array([-(self.g_f + self.g_g) / c], dtype=complex) if c > 0 else \
+            np.zeros(0, dtype=complex)
+
+
+def feedback_network(feedback) -> FeedbackNetwork:
+    """The :class:`FeedbackNetwork` of a ``[feedback]`` table, or of a β_f given as a number."""
+    if isinstance(feedback, (int, float)):
+        beta = float(feedback)
+        return FeedbackNetwork(beta, 1.0 - beta)
+    if feedback.type == "factor":
+        return FeedbackNetwork(feedback.factor, 1.0 - feedback.factor)
+    return FeedbackNetwork(1.0 / feedback.series_resistance, 1.0 / feedback.shunt_resistance,
+                           feedback.series_capacitance, feedback.shunt_capacitance)
 
 
 def cancel_pairs(zeros: np.ndarray, poles: np.ndarray, rtol: float = CANCEL_RTOL):
@@ -185,11 +248,12 @@ class LoopModel:
         (start, stop) of the design's sweep [Hz], widening the search grid.
     """
 
-    def __init__(self, responses: StageResponses, primary: str, feedback_factor: float,
+    def __init__(self, responses: StageResponses, primary: str, feedback,
                  sweep=(1.0, 1e10)):
         self.responses = responses
         self.primary = primary
-        self.beta = float(feedback_factor)
+        self.network = feedback_network(feedback)
+        self.beta = self.network.dc
         solver = responses.solver
         self.l, kind = responses.output_row(primary)
         self.b = responses.excitation(kind)
@@ -197,17 +261,42 @@ class LoopModel:
         self.sign = 1 if self.a0 >= 0 else -1
         poles = solver.poles()
         zeros = solver.zeros(self.b, self.l)
-        self.zeros_rad_s, self.poles_rad_s = cancel_pairs(zeros, poles)
-        self.grid_hz = search_grid(poles, *sweep)
-        G_cl = solver.G + self.sign * self.beta * np.outer(self.b, self.l)
-        self.closed = FrequencySolver(G_cl, solver.C, self.b[:, None], self.l[None, :])
+        zeros, poles = cancel_pairs(zeros, poles)
+        # T = β·A: the divider's zero and pole join the amplifier's
+        self.zeros_rad_s = np.concatenate([zeros, self.network.zero_rad_s])
+        self.poles_rad_s = np.concatenate([poles, self.network.pole_rad_s])
+        self.grid_hz = search_grid(np.concatenate([poles, self.network.pole_rad_s]), *sweep)
+        self.closed = self._closed_solver(solver)
         self._open = FrequencySolver(solver.G, solver.C, self.b[:, None], self.l[None, :])
 
+    def _closed_solver(self, solver) -> FrequencySolver:
+        """The closed loop with v_fb as one more unknown (see the module notes)."""
+        n = solver.n
+        net = self.network
+        G = np.zeros((n + 1, n + 1))
+        C = np.zeros((n + 1, n + 1))
+        G[:n, :n] = solver.G
+        C[:n, :n] = solver.C
+        G[:n, n] = self.sign * self.b
+        G[n, :n] = net.g_f * self.l
+        G[n, n] = -(net.g_f + net.g_g)
+        C[n, :n] = net.c_f * self.l
+        C[n, n] = -(net.c_f + net.c_g)
+        b = np.append(self.b, 0.0)
+        l = np.append(self.l, 0.0)
+        self._closed_b, self._closed_l = b, l
+        return FrequencySolver(G, C, b[:, None], l[None, :])
+
     # ---------------------------------------------------------------- open loop
+    def beta_at(self, f_hz) -> np.ndarray:
+        """β(j2πf) [V/V]."""
+        f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+        return self.network.at(2j * np.pi * f)
+
     def loop_gain(self, f_hz) -> np.ndarray:
         """T(j2πf) [V/V], exact."""
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
-        return self.sign * self.beta * self._open.response(2j * np.pi * f)[:, 0, 0]
+        return self.sign * self.beta_at(f) * self._open.response(2j * np.pi * f)[:, 0, 0]
 
     def loop_phase_deg(self, f_hz, values=None) -> np.ndarray:
         """Phase of T [deg], continuous from 0° at DC."""
@@ -229,7 +318,8 @@ class LoopModel:
 
     def closed_loop_zpk(self):
         """Closed-loop zeros, poles [rad/s] (unexcited/unseen modes cancelled) and DC gain."""
-        z, p = cancel_pairs(self.closed.zeros(self.b, self.l), self.closed.poles())
+        z, p = cancel_pairs(self.closed.zeros(self._closed_b, self._closed_l),
+                            self.closed.poles())
         return z, p, self.closed_loop_dc()
 
     # ---------------------------------------------------------------- margins
@@ -346,7 +436,7 @@ def loop_model(analysis) -> LoopModel | None:
     if fb is None:
         return None
     sw = analysis.design.sweep
-    return LoopModel(analysis.responses, analysis.primary, fb.factor, (sw.start, sw.stop))
+    return LoopModel(analysis.responses, analysis.primary, fb, (sw.start, sw.stop))
 
 
 def loop_analysis(analysis) -> LoopResult | None:
@@ -402,7 +492,7 @@ def loop_curves(analysis, f_hz=None) -> LoopCurves | None:
         f_hz = FrequencyGrid.from_design(analysis.design).f_hz
     f = np.atleast_1d(np.asarray(f_hz, dtype=float))
     t = model.loop_gain(f)
-    return LoopCurves(f, t, model.loop_phase_deg(f, t), model.closed_loop(f))
+    return LoopCurves(f, t, model.loop_phase_deg(f, t), model.closed_loop(f), model.beta_at(f))
 
 
 def step_response(analysis, t_s=None):

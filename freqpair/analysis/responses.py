@@ -55,6 +55,10 @@ class ResponseSet:
     ``adm``, ``acm_dm`` and ``acm_cm`` are None without a balanced output;
     ``a_total``, ``acm_total`` are None without a second stage. ``a_vpos`` and
     ``a_vneg`` are the rails' gains to the single-ended output (o2, or ``out``).
+    ``zin_dm`` and ``zin_cm`` are the input impedances [Ω] (DESIGN.md §7g):
+    (v_b1 − v_b2)/i_1 under the DM drive and v̄_b/(i_1 + i_2) under the CM
+    drive, i_k the current from R_s into node b_k (complex; infinite where no
+    current flows, e.g. into a MOS gate at DC).
     """
 
     f_hz: np.ndarray
@@ -67,6 +71,8 @@ class ResponseSet:
     acm_total: np.ndarray | None
     a_vpos: np.ndarray | None = None
     a_vneg: np.ndarray | None = None
+    zin_dm: np.ndarray | None = None
+    zin_cm: np.ndarray | None = None
 
     def get(self, name: str) -> np.ndarray | None:
         return getattr(self, name)
@@ -83,11 +89,37 @@ class StageResponses:
     def __init__(self, stage: Stage):
         self.stage = stage
         net = stage.network
-        rows = [net.selector({"o1": 1.0}), net.selector({"o2": 1.0})]
+        rows = {"o1": net.selector({"o1": 1.0}), "o2": net.selector({"o2": 1.0})}
         if stage.final_node != "o2":
-            rows.append(net.selector({stage.final_node: 1.0}))
-        self.solver = net.solver(np.array(rows))
+            rows["out"] = net.selector({stage.final_node: 1.0})
+        rows.update(self._input_rows())
+        #: output row name → index in the solver's outputs
+        self.rows = {name: i for i, name in enumerate(rows)}
+        self.solver = net.solver(np.array(list(rows.values())))
         self._dc: ResponseSet | None = None
+
+    def _input_rows(self) -> dict:
+        """Rows for the input impedance: v_b1, v_b2 and the currents i_1, i_2 from
+        R_s into b_1, b_2: the input source's own current (it flows through R_s
+        into b_k), or (v_in − v_b)/R_s where an added element also draws from
+        node in_k."""
+        net = self.stage.network
+        nodes = self.stage.nodes
+        design = self.stage.design
+        rows = {}
+        rs = design.source.resistance
+        n_nodes = len(net.node_names)
+        for k in (1, 2):
+            b = nodes[f"b{k}"]
+            rows[f"vb{k}"] = net.selector({b: 1.0})
+            shared = any(f"in{k}" in el.nodes for el in design.element)
+            if rs > 0 and shared:
+                rows[f"i{k}"] = net.selector({f"in{k}": 1.0 / rs, b: -1.0 / rs})
+            else:
+                row = np.zeros(net.size)
+                row[n_nodes + net.input_names.index(f"in{k}")] = -1.0   # into the circuit
+                rows[f"i{k}"] = row
+        return rows
 
     @property
     def primary(self) -> str:
@@ -99,22 +131,29 @@ class StageResponses:
     def _assemble(self, f_hz, H) -> ResponseSet:
         dm = H @ _B_DM          # (n_f, p)
         cm = H @ _B_CM
+        r = self.rows
+        o1, o2 = r["o1"], r["o2"]
         bal = self.stage.balanced
-        total = H.shape[1] > 2
-        so = 2 if total else 1                  # the single-ended output's row
-        vpos = H[:, so, 2]
-        vneg = H[:, so, 3]
+        total = "out" in r
+        so = r["out"] if total else o2          # the single-ended output's row
+        with np.errstate(divide="ignore", invalid="ignore"):
+            zin_dm = (dm[:, r["vb1"]] - dm[:, r["vb2"]]) / dm[:, r["i1"]]
+            zin_cm = 0.5 * (cm[:, r["vb1"]] + cm[:, r["vb2"]]) / (cm[:, r["i1"]] + cm[:, r["i2"]])
+        zin_dm = np.where(np.isfinite(zin_dm), zin_dm, np.inf)
+        zin_cm = np.where(np.isfinite(zin_cm), zin_cm, np.inf)
         return ResponseSet(
             f_hz=np.asarray(f_hz, dtype=float),
-            adm=(dm[:, 0] - dm[:, 1]) if bal else None,
-            adm_se=dm[:, 1],
-            acm_se=cm[:, 1],
-            acm_dm=(cm[:, 0] - cm[:, 1]) if bal else None,
-            acm_cm=(0.5 * (cm[:, 0] + cm[:, 1])) if bal else None,
-            a_total=dm[:, 2] if total else None,
-            acm_total=cm[:, 2] if total else None,
-            a_vpos=vpos,
-            a_vneg=vneg,
+            adm=(dm[:, o1] - dm[:, o2]) if bal else None,
+            adm_se=dm[:, o2],
+            acm_se=cm[:, o2],
+            acm_dm=(cm[:, o1] - cm[:, o2]) if bal else None,
+            acm_cm=(0.5 * (cm[:, o1] + cm[:, o2])) if bal else None,
+            a_total=dm[:, so] if total else None,
+            acm_total=cm[:, so] if total else None,
+            a_vpos=H[:, so, 2],
+            a_vneg=H[:, so, 3],
+            zin_dm=zin_dm,
+            zin_cm=zin_cm,
         )
 
     def at(self, f_hz) -> ResponseSet:

@@ -10,7 +10,9 @@ from freqpair.circuit.blas_threads import single_blas_thread
 from freqpair.design.schema import Design
 from freqpair.circuit.frequency import FrequencyGrid, s_of_hz
 from freqpair.analysis.crossings import DB_3, db, lowest_crossing, search_grid
+from freqpair.analysis.input_impedance import InputImpedance, input_impedance
 from freqpair.analysis.responses import ZERO_GAIN_RATIO, ResponseSet, StageResponses
+from freqpair.analysis.supply import SupplyRejection, single_ended_name, supply_rejection
 from freqpair.circuit.stage import Stage, TailNorton, build_stage
 
 __all__ = ["Analysis", "analyze"]
@@ -32,6 +34,10 @@ class Analysis:
     f3db_hz, ugf_hz : float or None
     acm_se_db, cmrr_se_db, cmrr_db : float or None
     cmrr_corner_hz : float or None
+    supply : SupplyRejection
+        PSRR± at DC and their corners (DESIGN.md §7f).
+    input_impedance : InputImpedance
+        |Z_in,dm|, |Z_in,cm| at DC and the DM corner (DESIGN.md §7g).
     """
 
     design: Design
@@ -51,6 +57,25 @@ class Analysis:
     cmrr_corner_hz: float | None
     natural_frequencies_rad_s: np.ndarray = field(repr=False)
     _search: np.ndarray = field(repr=False)
+    supply: SupplyRejection = None
+    input_impedance: InputImpedance = None
+
+    @property
+    def beta_dc(self) -> float | None:
+        """The feedback factor at DC: β_f, or R_g/(R_f + R_g) for a divider (None
+        without ``[feedback]``)."""
+        fb = self.design.feedback
+        return None if fb is None else float(fb.factor)
+
+    def noise(self):
+        """Spot and band noise (:class:`freqpair.analysis.noise.NoiseResult`), computed
+        on first use and kept."""
+        cached = self.__dict__.get("_noise")
+        if cached is None:
+            from freqpair.analysis.noise import noise_analysis
+            cached = noise_analysis(self.responses, self.design)
+            object.__setattr__(self, "_noise", cached)
+        return cached
 
     @property
     def tail(self) -> TailNorton | None:
@@ -94,6 +119,10 @@ class Analysis:
         }
         if self.a_total_db is not None:
             out["a_total_db"] = _fin(self.a_total_db)
+        out.update(self.supply.to_json())            # psrr_* (DESIGN.md §7f)
+        out.update(self.input_impedance.to_json())   # zin_* (DESIGN.md §7g)
+        out["beta_dc"] = _fin(self.beta_dc)          # DESIGN.md §7e
+        out["noise"] = self.noise().to_json()        # DESIGN.md §7h
         from freqpair.analysis.hand import hand_json
         from freqpair.analysis.poles import pole_zero_json
         out.update(pole_zero_json(self))     # poles_hz, zeros_hz of the primary gain
@@ -176,6 +205,9 @@ def _analyze(design: Design) -> Analysis:
     poles = resp.solver.poles()
     acm_se0 = complex(dc.acm_se[0])
     names = [primary] + (["adm_se", "acm_se"] if abs(acm_se0) > ZERO_GAIN_RATIO * ref else [])
+    se0 = abs(complex(dc.get(single_ended_name(resp))[0]))
+    names += [r for r in ("a_vpos", "a_vneg")
+              if abs(complex(dc.get(r)[0])) > ZERO_GAIN_RATIO * se0]
     grid = search_grid(np.concatenate([poles, _low_zeros(resp, names, poles)]),
                        design.sweep.start, design.sweep.stop)
     on_grid = resp.at(grid)
@@ -221,4 +253,5 @@ def _analyze(design: Design) -> Analysis:
         if acm_cm_db is not None:
             cmrr_textbook_db = 20 * math.log10(ref) - acm_cm_db
     return Analysis(design, stage, resp, dc, primary, adm_db, adm_db_first, a_total_db, f3db, ugf,
-                    acm_se_db, cmrr_se_db, cmrr_db, cmrr_textbook_db, corner, poles, grid)
+                    acm_se_db, cmrr_se_db, cmrr_db, cmrr_textbook_db, corner, poles, grid,
+                    supply_rejection(resp, grid, on_grid), input_impedance(resp, grid, on_grid))

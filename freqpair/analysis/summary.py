@@ -285,8 +285,8 @@ class MetricRow:
 def _flat(data: dict) -> dict:
     out = {}
     for k, v in data.items():
-        if k in ("name", "operating_point", "poles_hz", "zeros_hz", "hand"):
-            continue   # shown in the poles/zeros and hand sections
+        if k in ("name", "operating_point", "poles_hz", "zeros_hz", "hand", "noise"):
+            continue   # shown in the poles/zeros, hand and noise sections
         if isinstance(v, dict):
             for k2, v2 in v.items():
                 if not isinstance(v2, (dict, list)):

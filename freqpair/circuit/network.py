@@ -513,6 +513,66 @@ class FrequencySolver:
         x = np.linalg.solve(A, np.broadcast_to(self.B, (s.size,) + self.B.shape))
         return self.L @ x
 
+    # ------------------------------------------------------------ adjoint
+    @single_blas_thread()
+    def adjoint(self, s: np.ndarray, l: np.ndarray) -> np.ndarray:
+        """Solutions y of the transposed system ``(G + sC)ᵀ·y = lᵀ`` at each ``s``.
+
+        ``y[k]`` holds, for every unknown j, the transfer from a unit current
+        injected at node j to the output ``l·x`` at ``s[k]``: one solve gives
+        the transfer of every current source in the network (noise analysis).
+        Uses the same QZ reduction as :meth:`response` (a forward substitution
+        with the transposed triangular pencil, then one refinement step);
+        a few frequencies are solved directly.
+
+        Parameters
+        ----------
+        s : array_like of complex, shape (n_f,)
+            Complex frequencies [rad/s].
+        l : ndarray, shape (n,)
+            The output row.
+
+        Returns
+        -------
+        ndarray of complex, shape (n_f, n)
+        """
+        s = np.atleast_1d(np.asarray(s, dtype=complex))
+        l = np.asarray(l, dtype=float)
+        if s.size <= DIRECT_MAX_POINTS:
+            A = self.G.T[None, :, :] + s[:, None, None] * self.C.T[None, :, :]
+            try:
+                y = np.linalg.solve(A, np.broadcast_to(l[:, None], (s.size, self.n, 1)))[..., 0]
+            except np.linalg.LinAlgError:
+                raise NetworkError("the network is singular at one of the frequencies") \
+                    from None
+        else:
+            red = self._reduce()
+            sp = s / red.s0
+            pivots = red.diag_a[:, None] + red.diag_b[:, None] * sp[None, :]
+            y = self._adjoint_sweep(red, sp, pivots, l[:, None] * np.ones(s.size))
+            # one refinement step against the original pencil
+            res = l[:, None] - (self.G.T @ y + (self.C.T @ y) * s[None, :])
+            y = y + self._adjoint_sweep(red, sp, pivots, res)
+            y = y.T
+        if not np.all(np.isfinite(y)):
+            raise NetworkError("the network is singular at one of the frequencies")
+        return y
+
+    @staticmethod
+    def _adjoint_sweep(red: _Reduced, sp, pivots, rhs) -> np.ndarray:
+        """y with (G + sC)ᵀ y = rhs per column (rhs (n, n_f)), through the QZ form:
+        G + sC = Q·(AA + sp·BB)·Zᴴ, so (AA + sp·BB)ᵀ·w = Zᵀ·rhs and y = conj(Q)·w."""
+        n = red.AA.shape[0]
+        r = red.Z.T @ rhs
+        w = np.empty_like(r)
+        AA, BB = red.AA, red.BB
+        for i in range(n):
+            acc = r[i]
+            if i:
+                acc = acc - AA[:i, i] @ w[:i] - (BB[:i, i] @ w[:i]) * sp
+            w[i] = acc / pivots[i]
+        return red.Qh.T @ w
+
     # ------------------------------------------------------------ poles / zeros
     @single_blas_thread()
     def poles(self) -> np.ndarray:
