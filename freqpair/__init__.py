@@ -41,6 +41,7 @@ _PUBLIC = {
     "format_si": "freqpair.design.quantities",
     "parse_si": "freqpair.design.quantities",
     "build_stage": "freqpair.circuit.stage",
+    "locus": "freqpair.studies.locus",
 }
 
 __all__ = sorted(_PUBLIC)

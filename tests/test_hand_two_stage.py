@@ -25,7 +25,10 @@ from loop_designs import clean_two_stage
 TWO_STAGE_KEYS = {"two_stage_dominant_pole_hz", "two_stage_split_pole_hz", "miller_zero_hz",
                   "two_stage_gbw_hz", "a_total_dc"}
 SINGLE_STAGE_KEYS = {"adm_dc", "miller_input_pole_hz", "output_pole_hz", "octc_f3db_hz",
-                     "gbw_hz", "cmrr_corner_hz", "acm_se_dc", "acm_dm_dc"}
+                     "gbw_hz", "cmrr_corner_hz", "acm_se_dc", "acm_dm_dc",
+                     # supply rejection, input impedance and noise rows (DESIGN.md §7f–§7h)
+                     "psrr_pos_db_dc", "psrr_neg_db_dc", "zin_dm_dc", "zin_dm_corner_hz",
+                     "noise_en_spot"}
 EXAMPLE = ROOT / "examples" / "two_stage_miller_loop.toml"
 
 # values of the clean two-stage design (tests/loop_designs.py): square-law nmos pair,

@@ -30,14 +30,16 @@ from freqpair.analysis.responses import StageResponses
 from freqpair.circuit.frequency import s_of_hz
 
 __all__ = ["NoiseSpot", "NoiseResult", "NoiseCurves", "noise_curves", "noise_analysis",
-           "integrate_density", "SOURCE_RESISTORS", "NOISE_CAUTION"]
+           "integrate_density", "optimum_source_resistance", "SOURCE_RESISTORS",
+           "NOISE_CAUTION"]
 
 #: Names of the source resistors (for the noise figure).
 SOURCE_RESISTORS = ("Rs1", "Rs2")
 
-NOISE_CAUTION = ("Noise model: white and 1/f densities of resistors (4kT/R), bipolar shot "
-                 "noise (2qI_C, 2qI_B) and MOS channel noise (4kTγ_n·g_m); an ideal tail and "
-                 "the second stage's transconductor are taken as noiseless.")
+NOISE_CAUTION = ("Noise model — resistors 4kT/R, bipolar shot noise 2qI_C and 2qI_B (the "
+                 "base term with its 1/f corner), MOS channel noise 4kTγ_n·g_m (with its 1/f "
+                 "corner); an ideal tail and the second stage's transconductor are taken as "
+                 "noiseless.")
 
 
 @dataclass(frozen=True)
@@ -66,6 +68,13 @@ class NoiseCurves:
     gain: np.ndarray
     names: tuple
     contributions_v2_hz: np.ndarray
+    white_fraction: np.ndarray | None = None
+
+    def white_output_v2_hz(self) -> np.ndarray:
+        """S_out with every source's 1/f part removed [V²/Hz]."""
+        if self.white_fraction is None:
+            return self.output_v2_hz
+        return (self.contributions_v2_hz * self.white_fraction).sum(axis=1)
 
     @property
     def input_v_rthz(self) -> np.ndarray:
@@ -163,17 +172,21 @@ def noise_curves(resp: StageResponses, f_hz) -> NoiseCurves:
     y = resp.solver.adjoint(s, _output_row(resp))                               # (n_f, n)
     zero = np.zeros(f.size, dtype=complex)
     contrib = np.empty((f.size, len(sources)))
+    white = np.empty((f.size, len(sources)))
     for k, src in enumerate(sources):
         zb = y[:, index[src.b]] if src.b in index else zero
         za = y[:, index[src.a]] if src.a in index else zero
-        contrib[:, k] = np.abs(zb - za) ** 2 * src.density(f)
+        dens = src.density(f)
+        contrib[:, k] = np.abs(zb - za) ** 2 * dens
+        with np.errstate(divide="ignore", invalid="ignore"):
+            white[:, k] = np.where(dens > 0, src.white_a2_hz / dens, 1.0)
     total = contrib.sum(axis=1)
     # the same solve gives the primary gain: A = l·(G + sC)⁻¹·b = y·b
     _, kind = resp.output_row(resp.primary)
     a = y @ resp.excitation(kind)
     with np.errstate(divide="ignore", invalid="ignore"):
         en2 = np.where(np.abs(a) > 0, total / np.abs(a) ** 2, np.inf)
-    return NoiseCurves(f, total, en2, a, tuple(src.name for src in sources), contrib)
+    return NoiseCurves(f, total, en2, a, tuple(src.name for src in sources), contrib, white)
 
 
 def integrate_density(density, f_lo: float, f_hi: float, rtol: float = 1e-5,
@@ -244,3 +257,46 @@ def noise_analysis(resp: StageResponses, design) -> NoiseResult:
     in_ms = integrate_density(lambda f: noise_curves(resp, f).input_v2_hz, lo, hi)
     return NoiseResult(tuple(spots), (float(lo), float(hi)), math.sqrt(in_ms),
                        math.sqrt(out_ms))
+
+
+def _nf_db_at(design, r_s: float, f_hz: float) -> float:
+    from freqpair.circuit.stage import build_stage
+    from freqpair.design.keys import replace_value
+    resp = StageResponses(build_stage(replace_value(design, "source.resistance", r_s)))
+    nc = noise_curves(resp, [f_hz])
+    part = nc.source_resistor_v2_hz()
+    return 10.0 * math.log10(float(nc.output_v2_hz[0] / part[0]))
+
+
+def optimum_source_resistance(design, f_hz: float, bounds=(1.0, 1e9)) -> tuple[float, float]:
+    """The source resistance [Ω] that minimises the noise figure at ``f_hz`` [Hz].
+
+    Each candidate R_s is a full analysis of the design with that
+    ``source.resistance`` (the input network changes with it, so the noise
+    transfers do too). A scan at four points per decade brackets the minimum,
+    golden-section search on log R_s refines it to 1e-4 of a decade.
+
+    Returns
+    -------
+    (float, float)
+        R_opt [Ω] and NF_min [dB].
+    """
+    lo, hi = (math.log10(b) for b in bounds)
+    xs = np.linspace(lo, hi, int(round((hi - lo) * 4)) + 1)
+    nfs = [_nf_db_at(design, 10.0 ** x, f_hz) for x in xs]
+    k = int(np.argmin(nfs))
+    a, b = xs[max(k - 1, 0)], xs[min(k + 1, xs.size - 1)]
+    g = (math.sqrt(5.0) - 1.0) / 2.0
+    c, d = b - g * (b - a), a + g * (b - a)
+    fc, fd = _nf_db_at(design, 10.0 ** c, f_hz), _nf_db_at(design, 10.0 ** d, f_hz)
+    while b - a > 1e-4:
+        if fc < fd:
+            b, d, fd = d, c, fc
+            c = b - g * (b - a)
+            fc = _nf_db_at(design, 10.0 ** c, f_hz)
+        else:
+            a, c, fc = c, d, fd
+            d = a + g * (b - a)
+            fd = _nf_db_at(design, 10.0 ** d, f_hz)
+    x = (a + b) / 2.0
+    return 10.0 ** x, _nf_db_at(design, 10.0 ** x, f_hz)

@@ -24,8 +24,8 @@ from freqpair.design.errors import FreqpairError
 from freqpair.circuit.frequency import s_of_hz
 from freqpair.analysis.responses import ZERO_GAIN_RATIO
 
-__all__ = ["ResponseZPK", "response_zpk", "pole_zero_json", "CANCEL_REL_TOL", "ORIGIN_REL_TOL",
-           "RESPONSE_LABELS"]
+__all__ = ["ResponseZPK", "response_zpk", "gain_roots", "pole_zero_json", "CANCEL_REL_TOL",
+           "ORIGIN_REL_TOL", "RESPONSE_LABELS"]
 
 #: A pole and a zero closer than this (relative to their magnitude) cancel.
 CANCEL_REL_TOL = 1e-9
@@ -260,11 +260,7 @@ def response_zpk(analysis, name: str | None = None) -> ResponseZPK:
     _check_name(resp, name)
     solver = resp.solver
     s0 = solver.s0
-    l, kind = resp.output_row(name)
-    b = resp.excitation(kind)
-    # the DC solve exists (G is regular), so no pole sits at the origin: a slow pole
-    # far below the pencil's scale is kept at its refined value, never snapped to 0
-    all_poles = _clean(_refine(solver.G, solver.C, solver.poles()), s0, snap_origin=False)
+    all_poles = _poles(resp, polish=True)
 
     # probe points: DC and j·|p| for every pole (and j·s0)
     probe_w = np.unique(np.concatenate([np.abs(all_poles[all_poles != 0]), [s0]]))
@@ -280,10 +276,7 @@ def response_zpk(analysis, name: str | None = None) -> ResponseZPK:
         cache[name] = result
         return result
 
-    Ga, Ca = _augmented(solver.G, solver.C, b, l)
-    # a zero sits at the origin only when the DC gain is zero (to rounding)
-    dc_zero = abs(h_dc) <= ZERO_GAIN_RATIO * reference
-    zeros = _clean(_refine(Ga, Ca, solver.zeros(b, l)), s0, snap_origin=dc_zero)
+    zeros = _zeros(resp, name, abs(h_dc) <= ZERO_GAIN_RATIO * reference, polish=True)
     poles, zeros, pairs = _cancel(all_poles, zeros, s0)
     has_origin = bool(np.any(poles == 0) or np.any(zeros == 0))
     if not has_origin and abs(h_dc) > ZERO_GAIN_RATIO * reference:
@@ -297,6 +290,43 @@ def response_zpk(analysis, name: str | None = None) -> ResponseZPK:
                          f_ref)
     cache[name] = result
     return result
+
+
+def _poles(resp, polish: bool) -> np.ndarray:
+    """The network's poles [rad/s]; the DC solve exists (G is regular), so none sits
+    at the origin: a slow pole far below the pencil's scale is kept, never snapped."""
+    solver = resp.solver
+    roots = solver.poles()
+    if polish:
+        roots = _refine(solver.G, solver.C, roots)
+    return _clean(roots, solver.s0, snap_origin=False)
+
+
+def _zeros(resp, name: str, dc_is_zero: bool, polish: bool) -> np.ndarray:
+    """Zeros of one gain [rad/s]; a zero sits at the origin only when the DC gain
+    is zero (to rounding)."""
+    solver = resp.solver
+    l, kind = resp.output_row(name)
+    b = resp.excitation(kind)
+    roots = solver.zeros(b, l)
+    if polish:
+        roots = _refine(*_augmented(solver.G, solver.C, b, l), roots)
+    return _clean(roots, solver.s0, snap_origin=dc_is_zero)
+
+
+def gain_roots(resp, name: str, polish: bool = True) -> tuple[np.ndarray, np.ndarray]:
+    """Poles and zeros [rad/s] of one named gain of a :class:`StageResponses`,
+    coincident pole-zero pairs cancelled (as :func:`response_zpk` finds them,
+    without its gain and probes). ``polish=False`` skips the Rayleigh polishing
+    (faster; roots then carry the eigenvalue solver's accuracy).
+    """
+    _check_name(resp, name)
+    h_dc = abs(complex(resp.dc().get(name)[0]))
+    ref = abs(complex(resp.dc().get(resp.primary)[0]))
+    poles = _poles(resp, polish)
+    zeros = _zeros(resp, name, h_dc <= ZERO_GAIN_RATIO * ref, polish)
+    poles, zeros, _ = _cancel(poles, zeros, resp.solver.s0)
+    return poles, zeros
 
 
 def _cache_of(analysis) -> dict:

@@ -63,6 +63,65 @@ def _loop_lines(result) -> list[str]:
     return out
 
 
+def _supply_lines(result) -> list[str]:
+    """PSRR± at DC and their corners (DESIGN.md §7f)."""
+    s = result.supply
+    out = ["Supply rejection (at the single-ended output)"]
+    for sign, db_v, corner in (("+", s.psrr_pos_db, s.psrr_pos_corner_hz),
+                               ("−", s.psrr_neg_db, s.psrr_neg_corner_hz)):
+        if db_v is None:
+            out.append(_row(f"PSRR{sign} (DC)", "∞ (the rail does not reach the output)"))
+            continue
+        out.append(_row(f"PSRR{sign} (DC)", _db(db_v)))
+        out.append(_row(f"PSRR{sign} corner (−3 dB)", format_si(corner, "Hz")
+                        if corner is not None else "— (does not fall 3 dB)"))
+    return out
+
+
+def _input_lines(result) -> list[str]:
+    """Input impedance at DC and the DM corner (DESIGN.md §7g)."""
+    z = result.input_impedance
+    inf = "∞ (no DC input current)"
+    out = ["Input impedance (R_s not included)"]
+    out.append(_row("differential |Z_in,dm| (DC)", format_si(z.zin_dm_ohm, "Ω")
+                    if z.zin_dm_ohm is not None else inf))
+    out.append(_row("common-mode |Z_in,cm| (DC)", format_si(z.zin_cm_ohm, "Ω")
+                    if z.zin_cm_ohm is not None else inf))
+    if z.zin_dm_ohm is not None:
+        out.append(_row("Z_in,dm corner (−3 dB)", format_si(z.zin_dm_corner_hz, "Hz")
+                        if z.zin_dm_corner_hz is not None else "— (does not fall 3 dB)"))
+    return out
+
+
+def _noise_lines(result) -> list[str]:
+    """Spot noise, the largest contributors and the band rms (DESIGN.md §7h)."""
+    from freqpair.analysis.noise import NOISE_CAUTION
+    n = result.noise()
+    lo, hi = n.band_hz
+    out = ["Noise (input-referred; all sources uncorrelated)"]
+    for spot in n.spots:
+        f = format_si(spot.f_hz, "Hz")
+        out.append(_row(f"e_n at {f}", format_si(spot.input_v_rthz, "V/√Hz")
+                        + f"  (output {format_si(spot.output_v_rthz, 'V/√Hz')})"))
+        if spot.nf_db is not None:
+            out.append(_row(f"noise figure at {f} (R_s = "
+                            f"{format_si(result.design.source.resistance, 'Ω')})",
+                            f"{spot.nf_db:.2f} dB"))
+        top = ", ".join(f"{name} {100 * share:.0f} %" for name, share in spot.contributors[:4])
+        out.append(_row("      largest contributors", top or "—"))
+    from freqpair.analysis.noise import optimum_source_resistance
+    f0 = n.spots[0].f_hz
+    r_opt, nf_min = optimum_source_resistance(result.design, f0)
+    out.append(_row(f"R_s for the lowest noise figure at {format_si(f0, 'Hz')}",
+                    f"{format_si(r_opt, 'Ω')}  (NF {nf_min:.2f} dB)"))
+    out.append(_row(f"input rms, {format_si(lo, 'Hz')} … {format_si(hi, 'Hz')}",
+                    format_si(n.input_rms_v, "V")))
+    out.append(_row(f"output rms, {format_si(lo, 'Hz')} … {format_si(hi, 'Hz')}",
+                    format_si(n.output_rms_v, "V")))
+    out.append("  " + NOISE_CAUTION)
+    return out
+
+
 def format_summary(result) -> str:
     """A readable multi-line summary: operating point, gains, bandwidth, CMRR."""
     d = result.design
@@ -127,6 +186,12 @@ def format_summary(result) -> str:
              if result.cmrr_corner_hz is not None
              else "— (CMRR is infinite)" if result.cmrr_se_db is None
              else "— (CMRR does not fall 3 dB)"))
+    add("")
+    lines.extend(_supply_lines(result))
+    add("")
+    lines.extend(_input_lines(result))
+    add("")
+    lines.extend(_noise_lines(result))
     add("")
     lines.extend(pole_zero_section(result))
     if d.feedback is not None:

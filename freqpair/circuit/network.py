@@ -320,9 +320,13 @@ class FrequencySolver:
 
     @property
     def s0(self) -> float:
-        """Frequency scale [rad/s] used to balance the pencil."""
-        nc = np.linalg.norm(self.C, 1)
-        return float(np.linalg.norm(self.G, 1) / nc) if nc > 0 else 1.0
+        """Frequency scale [rad/s] used to balance the pencil (computed once)."""
+        s0 = self.__dict__.get("_s0")
+        if s0 is None:
+            nc = np.linalg.norm(self.C, 1)
+            s0 = float(np.linalg.norm(self.G, 1) / nc) if nc > 0 else 1.0
+            self._s0 = s0
+        return s0
 
     def _reduce(self) -> _Reduced:
         if self._red is None:

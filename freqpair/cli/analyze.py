@@ -10,6 +10,16 @@ def cmd_analyze(args) -> int:
     from freqpair.analysis.result import analyze
     from freqpair.cli.common import _load, print_json
     design = _load(args.design)
+    if args.at:
+        from freqpair.cli.common import CliError, _num
+        from freqpair.design.keys import replace_value
+        spots = [_num(v, "--at") for v in args.at]
+        for text, f in zip(args.at, spots):
+            if not f > 0:
+                raise CliError(f"--at = {text!r}: must be a frequency above 0 Hz")
+        design = replace_value(design, "noise.spot_frequencies",
+                               spots + [f for f in design.noise.spot_frequencies
+                                        if f not in spots])
     result = analyze(design)
     if args.csv:
         from freqpair.views.export import write_curves_csv
@@ -30,4 +40,7 @@ def register(sub) -> None:
     p.add_argument("--example", action="store_true", help="use the built-in example design")
     p.add_argument("--json", action="store_true", help="print one JSON object (SI units)")
     p.add_argument("--csv", metavar="FILE", help="also write the curves to FILE as CSV")
+    p.add_argument("--at", action="append", metavar="FREQ",
+                   help="a noise spot frequency (repeatable; the first one also gets the R_s "
+                        "that minimises the noise figure in the summary)")
     p.set_defaults(func=cmd_analyze)

@@ -20,6 +20,7 @@ SUBCOMMANDS = [
     "freqpair.cli.analyze:register",
     "freqpair.cli.fit:register",
     "freqpair.cli.compensate:register",
+    "freqpair.cli.locus:register",
     "freqpair.cli.sweep:register",
     "freqpair.cli.target:register",
     "freqpair.cli.montecarlo:register",

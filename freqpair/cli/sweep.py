@@ -76,8 +76,14 @@ def register(sub) -> None:
                     "KEY=V1,V2,... (a list); values take SI prefixes (\"2p\", \"1 mA\"). "
                     "Example: freqpair sweep design.toml --vary tail.capacitance=0.1p:100p:31:log",
         epilog="Metrics: adm_db, a_total_db, acm_se_db, f3db_hz, ugf_hz, cmrr_se_db, "
-               "cmrr_db, cmrr_textbook_db, cmrr_corner_hz. Points that cannot be analysed "
-               "keep their error in the 'error' column.")
+               "cmrr_db, cmrr_textbook_db, cmrr_corner_hz; psrr_pos_db, psrr_neg_db, "
+               "psrr_pos_corner_hz, psrr_neg_corner_hz; zin_dm_ohm, zin_cm_ohm, "
+               "zin_dm_corner_hz; input_noise_v_rthz, output_noise_v_rthz, nf_db, "
+               "input_rms_v, output_rms_v; with [feedback] phase_margin_deg, gain_margin_db, "
+               "crossover_hz, closed_loop_f3db_hz, peaking_db, overshoot_pct, "
+               "settling_time_s. --at reads the gains, CMRR, PSRR, |Z_in| and noise "
+               "densities at that frequency; other metrics keep their own meaning. Points "
+               "that cannot be analysed keep their error in the 'error' column.")
     p.add_argument("design", help="design file (TOML)")
     p.add_argument("--vary", action="append", required=True, metavar="AXIS",
                    help="a swept value (give once or twice for a 2-D sweep)")

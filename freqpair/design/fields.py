@@ -220,6 +220,16 @@ def _specs(cls):
     return [(_Declared(n, f.default), f.spec) for n, f in cls._fields]
 
 
+def _table_keys(cls) -> dict:
+    """TOML key → (field, spec) of a Section class, computed once per class."""
+    cached = cls.__dict__.get("_by_key")
+    if cached is None:
+        cached = {(s.alias or f.name) if s.kind != "tagged_list" else f.name: (f, s)
+                  for f, s in _specs(cls)}
+        cls._by_key = cached
+    return cached
+
+
 def _key(path: str, name: str) -> str:
     return f"{path}.{name}" if path else name
 
@@ -334,9 +344,7 @@ def build(cls, data, path: str = "", context: dict | None = None):
     context = {} if context is None else context
     if not isinstance(data, dict):
         raise KeyedError(path or "design", "must be a table", data)
-    specs = _specs(cls)
-    by_key = {(s.alias or f.name) if s.kind != "tagged_list" else f.name: (f, s)
-              for f, s in specs}
+    by_key = _table_keys(cls)
     tag_key = getattr(cls, "TAG_KEY", "type") if getattr(cls, "TAG", None) else None
     for k, v in data.items():
         if k not in by_key and k != tag_key:

@@ -22,6 +22,7 @@ from freqpair.studies.design_grid import GridTable, design_at, grid_rows, run_gr
 from freqpair.design.errors import FreqpairError
 from freqpair.analysis.crossings import db
 from freqpair.studies.targets import (
+    AT_FREQUENCY,
     LOOP_METRICS,
     METRICS,
     TargetResult,
@@ -216,7 +217,8 @@ def sweep_points(design, axes, metrics, at_hz, grid, points) -> list:
     for idx in points:
         try:
             res = analyze(design_at(design, axes, idx))
-            vals = tuple(metric_value(res, m, at_hz) for m in metrics)
+            vals = tuple(metric_value(res, m, at_hz if m in AT_FREQUENCY else None)
+                         for m in metrics)
             crv = None
             if grid is not None:
                 r = res.responses.at(grid)

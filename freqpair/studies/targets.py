@@ -31,12 +31,29 @@ METRICS = {
     "phase_margin_deg": math.inf, "gain_margin_db": math.inf, "crossover_hz": -math.inf,
     "closed_loop_f3db_hz": math.inf, "peaking_db": -math.inf, "overshoot_pct": -math.inf,
     "settling_time_s": math.inf,
+    # supply rejection and input impedance (None: the rail does not reach the output,
+    # or no input current flows); the corners: None = never falls 3 dB
+    "psrr_pos_db": math.inf, "psrr_neg_db": math.inf,
+    "psrr_pos_corner_hz": math.inf, "psrr_neg_corner_hz": math.inf,
+    "zin_dm_ohm": math.inf, "zin_cm_ohm": math.inf, "zin_dm_corner_hz": math.inf,
+    # noise: spot values at the first [noise] spot frequency (or at_hz), band rms
+    "input_noise_v_rthz": math.inf, "output_noise_v_rthz": math.inf, "nf_db": math.inf,
+    "input_rms_v": math.inf, "output_rms_v": math.inf,
 }
 #: metrics read from the loop analysis (need a [feedback] table)
 LOOP_METRICS = ("phase_margin_deg", "gain_margin_db", "crossover_hz", "closed_loop_f3db_hz",
                 "peaking_db", "overshoot_pct", "settling_time_s")
 #: metrics that can be read at a frequency (``at_hz``) instead of DC
-AT_FREQUENCY = ("adm_db", "acm_se_db", "cmrr_se_db", "cmrr_db")
+AT_FREQUENCY = ("adm_db", "acm_se_db", "cmrr_se_db", "cmrr_db", "psrr_pos_db", "psrr_neg_db",
+                "zin_dm_ohm", "zin_cm_ohm", "input_noise_v_rthz", "output_noise_v_rthz",
+                "nf_db")
+#: metrics of the supply-rejection and input-impedance results
+_PORT_METRICS = {"psrr_pos_db": "supply", "psrr_neg_db": "supply",
+                 "psrr_pos_corner_hz": "supply", "psrr_neg_corner_hz": "supply",
+                 "zin_dm_ohm": "input_impedance", "zin_cm_ohm": "input_impedance",
+                 "zin_dm_corner_hz": "input_impedance"}
+_NOISE_SPOT = {"input_noise_v_rthz": "input_v_rthz", "output_noise_v_rthz": "output_v_rthz",
+               "nf_db": "nf_db"}
 
 
 class TargetError(FreqpairError, ValueError):
@@ -54,7 +71,8 @@ def metric_value(result, metric: str, at_hz: float | None = None) -> float | Non
     """A metric of an :class:`~freqpair.analysis.result.Analysis`, optionally at ``at_hz`` [Hz].
 
     Returns the DC/contract value (None where infinite or undefined), or, with
-    ``at_hz``, the exact magnitude at that frequency [dB].
+    ``at_hz``, the exact value at that frequency: gains, CMRR and PSRR [dB],
+    |Z_in| [Ω], noise densities [V/√Hz], noise figure [dB].
     """
     if metric not in METRICS:
         raise TargetError(f"metric = {metric!r}: unknown (choose from {', '.join(METRICS)})")
@@ -64,6 +82,12 @@ def metric_value(result, metric: str, at_hz: float | None = None) -> float | Non
                 raise TargetError(f"metric = {metric!r}: needs a [feedback] table in the design")
             loop = result.loop()
             v = None if loop is None else getattr(loop, metric)
+        elif metric in _PORT_METRICS:
+            v = getattr(getattr(result, _PORT_METRICS[metric]), metric)
+        elif metric in _NOISE_SPOT:
+            v = getattr(result.noise().spots[0], _NOISE_SPOT[metric])
+        elif metric in ("input_rms_v", "output_rms_v"):
+            v = getattr(result.noise(), metric)
         else:
             v = getattr(result, metric)
         return None if v is None or not math.isfinite(v) else float(v)
@@ -72,7 +96,28 @@ def metric_value(result, metric: str, at_hz: float | None = None) -> float | Non
                           f"(at_hz works with {', '.join(AT_FREQUENCY)})")
     if not (math.isfinite(at_hz) and at_hz > 0):
         raise TargetError(f"at_hz = {at_hz!r}: must be a positive frequency [Hz]")
+    if metric in _NOISE_SPOT:
+        from freqpair.analysis.noise import noise_curves
+        nc = noise_curves(result.responses, [at_hz])
+        if metric == "input_noise_v_rthz":
+            v = float(nc.input_v_rthz[0])
+        elif metric == "output_noise_v_rthz":
+            v = float(nc.output_v_rthz[0])
+        else:
+            part = nc.source_resistor_v2_hz()
+            if part is None or part[0] <= 0:
+                return None
+            v = 10.0 * math.log10(float(nc.output_v2_hz[0] / part[0]))
+        return v if math.isfinite(v) else None
     r = result.responses.at([at_hz])
+    if metric in ("psrr_pos_db", "psrr_neg_db"):
+        from freqpair.analysis.supply import psrr_db, single_ended_name
+        rail = "vpos" if metric == "psrr_pos_db" else "vneg"
+        v = psrr_db(r, rail, single_ended_name(result.responses))[0]
+        return float(v) if math.isfinite(v) else None
+    if metric in ("zin_dm_ohm", "zin_cm_ohm"):
+        v = abs(complex(r.get(metric[:6])[0]))
+        return float(v) if math.isfinite(v) and v <= 1e15 else None
     if metric == "adm_db":
         v = db(r.get(result.primary))[0]
     elif metric == "acm_se_db":
