@@ -86,6 +86,10 @@ class LoopResult:
         Step overshoot above the final value [%] (None when unstable).
     settling_time_s : float or None
         Time after which the step stays within ±1 % of its final value [s].
+    peak_hz : float or None
+        Frequency of the closed loop's largest magnitude [Hz] (None: monotonic).
+    peak_time_s : float or None
+        Time of the step's highest point [s] (None: no overshoot or unstable).
     """
 
     feedback_factor: float
@@ -101,6 +105,8 @@ class LoopResult:
     closed_loop_stable: bool
     overshoot_pct: float | None
     settling_time_s: float | None
+    peak_hz: float | None = None
+    peak_time_s: float | None = None
 
     def to_json(self) -> dict:
         """The loop keys of the JSON contract (DESIGN.md §4; None → null)."""
@@ -407,27 +413,33 @@ def _time_grid(p, c, floor=1e-6 * SETTLE_BAND):
     return np.unique(np.concatenate(pieces))
 
 
-def _overshoot_and_settling(p, c):
-    """Overshoot [%] and 1 % settling time [s] of y/y(∞) = 1 − Σ c_i e^{p_i t}."""
+def _overshoot_and_settling(p, c, with_peak_time: bool = False):
+    """Overshoot [%] and 1 % settling time [s] of y/y(∞) = 1 − Σ c_i e^{p_i t}
+    (and the time of the peak [s] with ``with_peak_time``)."""
     t = _time_grid(p, c)
     shape = lambda x: _step_shape(c, p, x)                          # noqa: E731
     y = shape(t)
     k = int(np.argmax(y))
-    peak = y[k]
+    peak, t_peak = y[k], float(t[k])
     if 0 < k < t.size - 1:
         res = minimize_scalar(lambda x: -shape([x])[0], bounds=(t[k - 1], t[k + 1]),
                               method="bounded", options={"xatol": 1e-12 * t[k + 1]})
-        peak = max(peak, -res.fun)
+        if -res.fun > peak:
+            peak, t_peak = -res.fun, float(res.x)
     overshoot = float(max(0.0, peak - 1.0) * 100.0)
     err = np.abs(y - 1.0) - SETTLE_BAND
     out = np.nonzero(err > 0)[0]
     if out.size == 0:
-        return overshoot, 0.0
-    j = int(out[-1])
-    if j == t.size - 1:
-        return overshoot, None
-    g = lambda x: abs(shape([x])[0] - 1.0) - SETTLE_BAND            # noqa: E731
-    return overshoot, float(brentq(g, t[j], t[j + 1], xtol=1e-15, rtol=1e-13))
+        settling = 0.0
+    elif int(out[-1]) == t.size - 1:
+        settling = None
+    else:
+        j = int(out[-1])
+        g = lambda x: abs(shape([x])[0] - 1.0) - SETTLE_BAND        # noqa: E731
+        settling = float(brentq(g, t[j], t[j + 1], xtol=1e-15, rtol=1e-13))
+    if with_peak_time:
+        return overshoot, settling, t_peak
+    return overshoot, settling
 
 
 def loop_model(analysis) -> LoopModel | None:
@@ -462,23 +474,27 @@ def loop_analysis(analysis) -> LoopResult | None:
     cl_db = db(model.closed_loop(cl_grid))
     dc_db = 20 * math.log10(abs(h0))
     f3 = lowest_crossing(lambda f: db(model.closed_loop(f)), dc_db - DB_3, cl_grid, cl_db)
-    peaking = _peaking_db(model, cl_grid, cl_db, dc_db)
-    overshoot = settling = None
+    peaking, f_peak = _peaking_db(model, cl_grid, cl_db, dc_db)
+    overshoot = settling = t_peak = None
     if stable:
-        overshoot, settling = _overshoot_and_settling(p, _step_coefficients(z, p))
+        overshoot, settling, t_peak = _overshoot_and_settling(p, _step_coefficients(z, p),
+                                                              with_peak_time=True)
     return LoopResult(model.beta, model.sign, 20 * math.log10(model.beta * abs(model.a0)),
-                      pm, wc, gm, wp, h0, f3, peaking, stable, overshoot, settling)
+                      pm, wc, gm, wp, h0, f3, peaking, stable, overshoot, settling,
+                      f_peak if peaking > 0 else None, t_peak if overshoot else None)
 
 
-def _peaking_db(model, grid, values_db, dc_db) -> float:
+def _peaking_db(model, grid, values_db, dc_db) -> tuple[float, float]:
+    """(peaking above the DC value [dB], frequency of the maximum [Hz])."""
     k = int(np.argmax(values_db))
-    best = float(values_db[k])
+    best, f_best = float(values_db[k]), float(grid[k])
     if 0 < k < grid.size - 1:
         res = minimize_scalar(lambda x: -float(db(model.closed_loop(10.0 ** x))[0]),
                               bounds=(math.log10(grid[k - 1]), math.log10(grid[k + 1])),
                               method="bounded", options={"xatol": 1e-10})
-        best = max(best, -res.fun)
-    return float(max(0.0, best - dc_db))
+        if -res.fun > best:
+            best, f_best = -res.fun, 10.0 ** res.x
+    return float(max(0.0, best - dc_db)), f_best
 
 
 def loop_curves(analysis, f_hz=None) -> LoopCurves | None:

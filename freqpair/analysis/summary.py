@@ -266,6 +266,14 @@ METRIC_LABELS = {
     "closed_loop_stable": "closed loop stable",
     "overshoot_pct": "step overshoot",
     "settling_time_s": "1 % settling time",
+    "beta_dc": "feedback factor at DC β(0)",
+    "psrr_pos_db": "PSRR+ at DC (positive rail)",
+    "psrr_pos_corner_hz": "PSRR+ corner (−3 dB)",
+    "psrr_neg_db": "PSRR− at DC (negative rail)",
+    "psrr_neg_corner_hz": "PSRR− corner (−3 dB)",
+    "zin_dm_ohm": "differential input impedance |Z_in,dm| at DC",
+    "zin_cm_ohm": "common-mode input impedance |Z_in,cm| at DC",
+    "zin_dm_corner_hz": "Z_in,dm corner (−3 dB)",
 }
 
 #: keys that exist only for a stage with a balanced (two-output) load
@@ -287,6 +295,14 @@ _NULL_TEXT = {
     "phase_crossover_hz": "no crossing",
     "overshoot_pct": "— (unstable)",
     "settling_time_s": "— (unstable)",
+    "beta_dc": "— (no loop)",
+    "psrr_pos_db": "∞ (the rail does not reach the output)",
+    "psrr_neg_db": "∞ (the rail does not reach the output)",
+    "psrr_pos_corner_hz": "none",
+    "psrr_neg_corner_hz": "none",
+    "zin_dm_ohm": "∞ (no DC input current)",
+    "zin_cm_ohm": "∞ (no DC input current)",
+    "zin_dm_corner_hz": "none",
 }
 
 _OP_UNITS = {"ic": ("I_C", "A"), "id": ("I_D", "A"), "gm": ("g_m", "S"), "rpi": ("r_pi", "Ω"),
@@ -332,6 +348,8 @@ def format_metric(key: str, value, balanced: bool = True) -> str:
         return format_si(value, "F")
     if key.endswith("_pct"):
         return f"{value:.2f} %"
+    if key.endswith("_ohm"):
+        return format_si(value, "Ω")
     if key.endswith("_s"):
         return format_si(value, "s")
     return f"{value:.6g}"

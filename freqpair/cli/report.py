@@ -1,4 +1,4 @@
-"""``freqpair report DESIGN.toml [--measured CSV --kind K] [-o report.html]``."""
+"""``freqpair report DESIGN.toml [--measured CSV --kind K] [--locus KEY=A:B:N] [-o report.html]``."""
 from __future__ import annotations
 
 import sys
@@ -20,8 +20,12 @@ def cmd_report(args) -> int:
                                        frequency_column=args.frequency_column,
                                        magnitude_column=args.magnitude_column,
                                        phase_column=args.phase_column)
+    locus = None
+    if args.locus:
+        from freqpair.cli.locus import parse_range
+        locus = parse_range(args.locus)
     result = analyze(load_design(args.design))
-    write_report(result, args.output, measurement)
+    write_report(result, args.output, measurement, locus)
     print(f"freqpair: report written to {args.output}", file=sys.stderr)
     return 0
 
@@ -48,4 +52,7 @@ def register(sub) -> None:
     for role in ("frequency", "magnitude", "phase"):
         p.add_argument(f"--{role}-column", metavar="NAME",
                        help=f"measurement column holding the {role} (default: found by name)")
+    p.add_argument("--locus", metavar="KEY=A:B:N[:log]",
+                   help="add the pole paths of the primary gain while KEY moves (section "
+                        "'Pole paths')")
     p.set_defaults(func=cmd_report)

@@ -139,7 +139,9 @@ def _hand_html(analysis) -> str:
 
 def _loop_html(analysis) -> str:
     if analysis.design.feedback is None:
-        return '<p class="note">No [feedback] table in the design: no loop margins.</p>'
+        return ('<p class="note">No [feedback] table in the design: no loop margins. Set a '
+                "feedback factor or a divider to see the loop gain, the closed loop and the "
+                "step response.</p>")
     from freqpair.analysis.loop import loop_analysis
     lr = loop_analysis(analysis)
     if lr is None:
@@ -150,6 +152,133 @@ def _loop_html(analysis) -> str:
             if hasattr(lr, k)]
     return (f'<p class="note">Feedback factor β_f = {analysis.design.feedback.factor:g}.</p>'
             + table(rows, ["quantity", "value"], (1,)))
+
+
+def _source(cols: dict):
+    from bokeh.models import ColumnDataSource
+    import numpy as np
+    return ColumnDataSource({k: (np.asarray(v) if not isinstance(v, list) else v)
+                             for k, v in cols.items()})
+
+
+def _grid(analysis):
+    from freqpair.circuit.frequency import FrequencyGrid
+    return FrequencyGrid.from_design(analysis.design).f_hz
+
+
+def _stability_section(analysis):
+    """HTML and figures of the "Stability" section (designs with [feedback])."""
+    from bokeh.layouts import column
+
+    from freqpair.views.stage_data import loop_view
+    from freqpair.views.stage_plots import closed_loop_figure, loop_figures, step_figure
+    view = loop_view(analysis, _grid(analysis))
+    res = view["result"]
+    fb = analysis.design.feedback
+    if fb.type == "divider":
+        what = (f"Feedback divider R_f = {format_si(fb.series_resistance, 'Ω')} ∥ "
+                f"C_f = {format_si(fb.series_capacitance, 'F')}, R_g = "
+                f"{format_si(fb.shunt_resistance, 'Ω')} ∥ C_g = "
+                f"{format_si(fb.shunt_capacitance, 'F')}: β(0) = {analysis.beta_dc:.6g} "
+                "(the divider alone, not loaded by the stage).")
+    else:
+        what = f"Feedback factor β_f = {fb.factor:g}."
+    if res is None:
+        return section("Stability", f'<p class="note">{escape(what)} The amplifier\'s DC gain '
+                       "is zero: there is no loop.</p>", "stability"), None
+    marks = {k: _source(v) for k, v in view["marks"].items()}
+    mag, ph = loop_figures(_source(view["curves"]), marks)
+    cl = closed_loop_figure(_source(view["curves"]), marks, x_range=mag.x_range)
+    figs = [mag, ph, cl]
+    if view["step"]["t_s"].size:
+        figs.append(step_figure(_source(view["step"]), marks))
+    keys = ["phase_margin_deg", "crossover_hz", "gain_margin_db", "phase_crossover_hz",
+            "closed_loop_f3db_hz", "peaking_db", "overshoot_pct", "settling_time_s"]
+    rows = [(METRIC_LABELS.get(k, k), format_metric(k, getattr(res, k))) for k in keys]
+    html = (f'<p class="note">{escape(what)} T = β·A·sign (T(0) > 0); the marks on the plots '
+            "are the numbers below.</p>" + table(rows, ["quantity", "value"], (1,))
+            + "{{plot:stability}}")
+    return section("Stability", html, "stability"), column(*figs, sizing_mode="stretch_width")
+
+
+def _supply_section(analysis):
+    from freqpair.views.stage_data import supply_view
+    from freqpair.views.stage_plots import psrr_figure
+    view = supply_view(analysis, _grid(analysis))
+    marks = {k: _source(v) for k, v in view["marks"].items()}
+    fig = psrr_figure(_source(view["curves"]), marks)
+    s = view["result"]
+    rows = [(METRIC_LABELS.get(k, k), format_metric(k, getattr(s, k)))
+            for k in ("psrr_pos_db", "psrr_pos_corner_hz", "psrr_neg_db", "psrr_neg_corner_hz")]
+    html = ('<p class="note">The rails driven one at a time (inputs at 0), seen at the '
+            "single-ended output; PSRR = |A_se/A_rail|.</p>"
+            + table(rows, ["quantity", "value"], (1,)) + "{{plot:supply}}")
+    return section("Supply rejection", html, "supply"), fig
+
+
+def _input_section(analysis):
+    from freqpair.views.stage_data import input_view
+    from freqpair.views.stage_plots import input_impedance_figure
+    view = input_view(analysis, _grid(analysis))
+    fig = input_impedance_figure(_source(view["curves"]),
+                                 {k: _source(v) for k, v in view["marks"].items()})
+    z = view["result"]
+    rows = [(METRIC_LABELS.get(k, k), format_metric(k, getattr(z, k)))
+            for k in ("zin_dm_ohm", "zin_cm_ohm", "zin_dm_corner_hz")]
+    html = table(rows, ["quantity", "value"], (1,)) + "{{plot:zin}}"
+    return section("Input impedance", html, "zin"), fig
+
+
+def _noise_section(analysis):
+    from freqpair.analysis.noise import NOISE_CAUTION
+    from freqpair.views.stage_data import noise_view
+    from freqpair.views.stage_plots import noise_figure
+    view = noise_view(analysis, _grid(analysis))
+    fig = noise_figure(_source(view["curves"]),
+                       {k: _source(v) for k, v in view["marks"].items()})
+    res = view["result"]
+    spots = []
+    for s in res.spots:
+        spots.append((format_si(s.f_hz, "Hz"), format_si(s.input_v_rthz, "V/√Hz"),
+                      format_si(s.output_v_rthz, "V/√Hz"),
+                      "—" if s.nf_db is None else f"{s.nf_db:.2f} dB"))
+    lo, hi = res.band_hz
+    c = view["contributors"]
+    contrib = list(zip(c["name"], c["share"], c["density"]))
+    html = (table(spots, ["spot frequency", "e_n (input)", "output", "noise figure"],
+                  (1, 2, 3))
+            + f'<p class="note">rms over {format_si(lo, "Hz")} … {format_si(hi, "Hz")}: '
+              f'input {format_si(res.input_rms_v, "V")}, output '
+              f'{format_si(res.output_rms_v, "V")}.</p>'
+            + "{{plot:noise}}"
+            + f"<p>Who contributes at {format_si(view['at_hz'], 'Hz')}:</p>"
+            + table(contrib, ["source", "share of the noise power", "its part of e_n"], (1, 2))
+            + f'<p class="note">{escape(NOISE_CAUTION)}</p>')
+    return section("Noise", html, "noise"), fig
+
+
+def _locus_section(analysis, key: str, values):
+    import numpy as np
+
+    from freqpair.analysis.poles import response_zpk
+    from freqpair.views.stage_data import locus_view
+    from freqpair.views.stage_plots import locus_figure
+    view = locus_view(analysis.design, key, values)
+    zpk = response_zpk(analysis, view["gain"])
+    cur = {"abs_re_hz": [], "im_hz": [], "kind": []}
+    for kind, roots in (("pole", zpk.poles_rad_s), ("zero", zpk.zeros_rad_s)):
+        for r in roots:
+            if r.real != 0:
+                cur["abs_re_hz"].append(abs(r.real) / (2 * np.pi))
+                cur["im_hz"].append(r.imag / (2 * np.pi))
+                cur["kind"].append(kind)
+    fig = locus_figure(_source(view["paths"]), _source(view["points"]), _source(cur),
+                       key_label=key)
+    vals = view["locus"].values
+    html = (f'<p class="note">The exact poles and zeros of {escape(view["gain"])} while '
+            f"{escape(key)} moves from {format_si(vals[0])} to {format_si(vals[-1])} "
+            f"({len(vals)} values); black marks: this design.</p>" + "{{plot:locus}}")
+    return section("Pole paths", html, "locus"), fig
 
 
 def _measured_section(ov, origin: str):
@@ -186,7 +315,7 @@ def _measured_section(ov, origin: str):
         *figs, sizing_mode="stretch_width")
 
 
-def report_html(analysis, measurement=None) -> str:
+def report_html(analysis, measurement=None, locus=None) -> str:
     """The whole report of one analysis as a standalone HTML document.
 
     Parameters
@@ -197,6 +326,8 @@ def report_html(analysis, measurement=None) -> str:
         (:func:`freqpair.studies.measured.overlay`: residual rms and largest residual
         [dB], overlay plot) and ``measured`` (the overlay's JSON) in the
         embedded data.
+    locus : (str, sequence of float), optional
+        A design key and its values: adds the section "Pole paths".
 
     Returns
     -------
@@ -231,7 +362,20 @@ def report_html(analysis, measurement=None) -> str:
                             "zero at every frequency: CMRR is infinite.</p>", "cmrr"))
     body.append(section("Poles and zeros", _pole_zero_html(analysis), "poles"))
     body.append(section("Hand estimates beside the exact numbers", _hand_html(analysis), "hand"))
-    body.append(section("Loop margins", _loop_html(analysis), "loop"))
+    if d.feedback is not None:
+        html, fig = _stability_section(analysis)
+        body.append(html)
+        if fig is not None:
+            plots["stability"] = fig
+    else:
+        body.append(section("Stability", _loop_html(analysis), "stability"))
+    for build, name in ((_supply_section, "supply"), (_input_section, "zin"),
+                        (_noise_section, "noise")):
+        html, plots[name] = build(analysis)
+        body.append(html)
+    if locus is not None:
+        html, plots["locus"] = _locus_section(analysis, *locus)
+        body.append(html)
     if measurement is not None:
         from freqpair.studies.measured import overlay
         ov = overlay(analysis, measurement)
@@ -245,10 +389,10 @@ def report_html(analysis, measurement=None) -> str:
                        "differential stage", "".join(body), plots, data)
 
 
-def write_report(analysis, path, measurement=None) -> None:
+def write_report(analysis, path, measurement=None, locus=None) -> None:
     """Write :func:`report_html` to ``path`` atomically (temporary file, then rename).
 
     An interrupted run leaves the old file or none, never half a report.
     """
     from freqpair.design.files import atomic_write_text
-    atomic_write_text(path, report_html(analysis, measurement))
+    atomic_write_text(path, report_html(analysis, measurement, locus))
