@@ -99,3 +99,20 @@ def test_report_locus_option_adds_the_pole_paths(tmp_path):
     assert 'id="locus"' in html and "Pole paths" in html
     bad = run_cli("report", LOOP, "-o", tmp_path / "x.html", "--locus", "nope=1:2")
     assert bad.returncode == 2 and not (tmp_path / "x.html").exists()
+
+
+def test_compare_shows_stability_supply_and_noise_when_a_design_has_a_loop(tmp_path):
+    # oracle: the brief — the stability views appear in compare too (designs with [feedback])
+    out = tmp_path / "c.html"
+    run = run_cli("compare", LOOP, ROOT / "examples" / "npn_resistor_rc_tail.toml", "-o", out)
+    assert run.returncode == 0, run.stderr
+    html = out.read_text()
+    for ident in ("stability", "supply", "noise"):
+        assert f'id="{ident}"' in html
+    a = freqpair.analyze(freqpair.load_design(LOOP))
+    pm = format_metric("phase_margin_deg", a.loop().phase_margin_deg)
+    assert f"<td class=\"num\">{pm}</td>" in html or pm in html
+    out2 = tmp_path / "d.html"
+    run = run_cli("compare", ROOT / "examples" / "npn_resistor_rc_tail.toml",
+                  ROOT / "examples" / "npn_mismatched_pair.toml", "-o", out2)
+    assert 'id="stability"' not in out2.read_text()

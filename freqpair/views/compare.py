@@ -133,11 +133,25 @@ def compare_html(analyses, labels=None) -> str:
                        for i, (a, lab) in enumerate(zip(analyses, ct.labels)))
     plots = {"gain": overlay_figure(analyses, "primary", ct.labels),
              "phase": overlay_figure(analyses, "phase", ct.labels),
-             "cmrr": overlay_figure(analyses, "cmrr_se", ct.labels)}
+             "cmrr": overlay_figure(analyses, "cmrr_se", ct.labels),
+             "psrr_pos": overlay_figure(analyses, "psrr_pos", ct.labels),
+             "psrr_neg": overlay_figure(analyses, "psrr_neg", ct.labels),
+             "noise": overlay_figure(analyses, "noise", ct.labels)}
+    loops = any(a.design.feedback is not None for a in analyses)
+    if loops:
+        for q in ("loop", "loop_phase", "closed"):
+            plots[q] = overlay_figure(analyses, q, ct.labels)
+    stability = (section("Stability", '<p class="note">Designs with a [feedback] table: loop '
+                         "gain, its phase (continuous from 0° at DC) and the closed loop; the "
+                         "margins are in the table above.</p>{{plot:loop}}{{plot:loop_phase}}"
+                         "{{plot:closed}}", "stability") if loops else "")
     body = "".join([
         section("Metrics side by side", legend + metric_tbl, "metrics"),
         section("Differential gain", "{{plot:gain}}{{plot:phase}}", "gain"),
         section("CMRR single-ended", "{{plot:cmrr}}", "cmrr"),
+        stability,
+        section("Supply rejection", "{{plot:psrr_pos}}{{plot:psrr_neg}}", "supply"),
+        section("Noise", "{{plot:noise}}", "noise"),
         section("The stages", f'<div class="grid2">{pictures}</div>', "stages"),
         section("Cautions", f'<p class="caution">{escape(CAUTION)}</p>', "cautions"),
     ])

@@ -158,15 +158,53 @@ def cmrr_figure(analysis, f_hz=None):
     return fig
 
 
+def _loop_curve(a, f, what):
+    from freqpair.analysis.loop import loop_curves
+    lc = loop_curves(a, f)
+    if lc is None:
+        return None
+    if what == "loop":
+        return db(lc.loop_gain)
+    if what == "loop_phase":
+        return lc.loop_phase_deg
+    return db(lc.closed_loop)
+
+
+def _psrr_curve(a, f, rail):
+    from freqpair.analysis.supply import psrr_db, single_ended_name
+    y = psrr_db(a.responses.at(f), rail, single_ended_name(a.responses))
+    return np.where(np.isfinite(y), y, np.nan)
+
+
+def _noise_curve(a, f):
+    from freqpair.analysis.noise import noise_curves
+    return noise_curves(a.responses, f).input_v_rthz * 1e9
+
+
+#: quantities computed per design on the shared frequencies (None: the design lacks it)
+_EXTRA_QUANTITIES = {
+    "loop": lambda a, f: _loop_curve(a, f, "loop"),
+    "loop_phase": lambda a, f: _loop_curve(a, f, "loop_phase"),
+    "closed": lambda a, f: _loop_curve(a, f, "closed"),
+    "psrr_pos": lambda a, f: _psrr_curve(a, f, "vpos"),
+    "psrr_neg": lambda a, f: _psrr_curve(a, f, "vneg"),
+    "noise": _noise_curve,
+}
+
+
 def overlay_figure(analyses, quantity: str = "primary", labels=None, f_hz=None):
     """One curve per design on a shared axis, for comparisons.
 
     Parameters
     ----------
     analyses : list of Analysis
-    quantity : {"primary", "cmrr_se", "phase"}
+    quantity : {"primary", "cmrr_se", "phase", "loop", "loop_phase", "closed", "psrr_pos",
+                "psrr_neg", "noise"}
         "primary": each design's main differential gain [dB]; "phase": its
-        phase [deg]; "cmrr_se": single-ended CMRR [dB].
+        phase [deg]; "cmrr_se": single-ended CMRR [dB]; "loop", "loop_phase",
+        "closed": loop gain [dB], its continuous phase [deg] and the closed loop
+        [dB] (designs with [feedback]); "psrr_pos"/"psrr_neg" [dB]; "noise":
+        input-referred density [nV/√Hz].
     labels : list of str, optional
         Legend entries (default: design names).
     f_hz : array_like, optional
@@ -181,7 +219,13 @@ def overlay_figure(analyses, quantity: str = "primary", labels=None, f_hz=None):
     from freqpair.views.plots import eng_formatter, freq_figure
     titles = {"primary": ("Differential gain", "magnitude [dB]"),
               "phase": ("Differential gain phase", "phase [deg]"),
-              "cmrr_se": ("CMRR single-ended", "CMRR [dB]")}
+              "cmrr_se": ("CMRR single-ended", "CMRR [dB]"),
+              "loop": ("Loop gain |T|", "magnitude [dB]"),
+              "loop_phase": ("Loop gain phase", "phase [deg]"),
+              "closed": ("Closed-loop gain", "magnitude [dB]"),
+              "psrr_pos": ("PSRR+ (positive rail)", "PSRR [dB]"),
+              "psrr_neg": ("PSRR− (negative rail)", "PSRR [dB]"),
+              "noise": ("Input-referred noise density", "e_n [nV/√Hz]")}
     if quantity not in titles:
         raise ValueError(f"quantity = {quantity!r}: expected one of {sorted(titles)}")
     if f_hz is None:
@@ -192,7 +236,12 @@ def overlay_figure(analyses, quantity: str = "primary", labels=None, f_hz=None):
     fig = freq_figure(*titles[quantity], height=300)
     for i, (a, label) in enumerate(zip(analyses, labels)):
         colour = PALETTE[i % len(PALETTE)]
-        if quantity == "cmrr_se":
+        if quantity in _EXTRA_QUANTITIES:
+            y = _EXTRA_QUANTITIES[quantity](a, np.asarray(f_hz, dtype=float))
+            if y is None:
+                continue
+            cols = {"frequency_hz": np.asarray(f_hz, dtype=float)}
+        elif quantity == "cmrr_se":
             cols = curve_columns(a, ["adm_se", "acm_se"], f_hz)
             if "acm_se_db" not in cols:
                 continue
@@ -204,7 +253,7 @@ def overlay_figure(analyses, quantity: str = "primary", labels=None, f_hz=None):
                 continue
             y = cols[key]
         _line(fig, cols["frequency_hz"], y, colour, f"{i + 1}: {label}")
-    unit = " dB" if quantity != "phase" else "°"
+    unit = {"phase": "°", "loop_phase": "°", "noise": " nV/√Hz"}.get(quantity, " dB")
     fig.add_tools(HoverTool(tooltips=[("design", "$name"), ("frequency", "@f_hz{eng}"),
                                       ("value", "@y{0.00}" + unit)],
                             formatters={"@f_hz": eng_formatter("Hz")}))
