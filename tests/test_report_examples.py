@@ -37,9 +37,11 @@ def load_script(monkeypatch):
         del sys.modules[key]
 
 
-def test_there_are_eight_design_files():
-    # oracle: the examples brief — eight invented scenarios ship in examples/
-    assert len(DESIGNS) >= 8
+def test_there_are_ten_design_files():
+    # oracle: the examples briefs — eight invented scenarios, then two more for the
+    # second edition (a degenerated front end with added elements, a divider loop)
+    assert len(DESIGNS) >= 10
+    assert {"npn_degenerated_instrumentation", "nmos_cascode_divider_loop"} <= set(DESIGNS)
 
 
 @pytest.mark.parametrize("name", DESIGNS)

@@ -308,7 +308,8 @@ _NULL_TEXT = {
 _OP_UNITS = {"ic": ("I_C", "A"), "id": ("I_D", "A"), "gm": ("g_m", "S"), "rpi": ("r_pi", "Ω"),
              "ro": ("r_o", "Ω"), "cpi": ("C_pi", "F"), "cmu": ("C_mu", "F"),
              "cgs": ("C_gs", "F"), "cgd": ("C_gd", "F"), "vce": ("V_CE", "V"),
-             "vcb": ("V_CB", "V"), "vds": ("V_DS", "V"), "vgs": ("V_GS", "V")}
+             "vcb": ("V_CB", "V"), "vds": ("V_DS", "V"), "vgs": ("V_GS", "V"),
+             "gmb": ("g_mb", "S")}
 
 
 def format_metric(key: str, value, balanced: bool = True) -> str:
