@@ -97,6 +97,7 @@ class StageResponses:
         self.rows = {name: i for i, name in enumerate(rows)}
         self.solver = net.solver(np.array(list(rows.values())))
         self._dc: ResponseSet | None = None
+        self._parts: dict = {}
 
     def _input_rows(self) -> dict:
         """Rows for the input impedance: v_b1, v_b2 and the currents i_1, i_2 from
@@ -128,7 +129,13 @@ class StageResponses:
             return "a_total"
         return "adm" if self.stage.balanced else "adm_se"
 
-    def _assemble(self, f_hz, H) -> ResponseSet:
+    def _assemble(self, f_hz, H, part: str = "all") -> ResponseSet:
+        so = self.rows["out"] if "out" in self.rows else self.rows["o2"]
+        if part == "rails":                     # columns vpos, vneg only (see ``at``)
+            return ResponseSet(np.asarray(f_hz, dtype=float), None, None, None, None, None,
+                               None, None, H[:, so, 0], H[:, so, 1])
+        if part == "signal":                    # columns in1, in2 only
+            H = np.concatenate([H, np.zeros(H.shape[:2] + (2,), dtype=complex)], axis=2)
         dm = H @ _B_DM          # (n_f, p)
         cm = H @ _B_CM
         r = self.rows
@@ -150,15 +157,26 @@ class StageResponses:
             acm_cm=(0.5 * (cm[:, o1] + cm[:, o2])) if bal else None,
             a_total=dm[:, so] if total else None,
             acm_total=cm[:, so] if total else None,
-            a_vpos=H[:, so, 2],
-            a_vneg=H[:, so, 3],
+            a_vpos=H[:, so, 2] if part == "all" else None,
+            a_vneg=H[:, so, 3] if part == "all" else None,
             zin_dm=zin_dm,
             zin_cm=zin_cm,
         )
 
-    def at(self, f_hz) -> ResponseSet:
-        """All gains at frequencies ``f_hz`` [Hz] (batched over frequency)."""
+    def at(self, f_hz, rails_only: bool = False, signal_only: bool = False) -> ResponseSet:
+        """All gains at frequencies ``f_hz`` [Hz] (batched over frequency).
+
+        With ``rails_only`` only the rails' gains ``a_vpos``, ``a_vneg`` are
+        solved (the other fields are None); with ``signal_only`` everything but
+        them (``a_vpos``, ``a_vneg`` None): each half the work of a full sweep.
+        """
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
+        if rails_only or signal_only:
+            cols, part = ([2, 3], "rails") if rails_only else ([0, 1], "signal")
+            sub = self._parts.get(part)
+            if sub is None:
+                sub = self._parts[part] = self.solver.with_inputs(cols)
+            return self._assemble(f, sub.response(s_of_hz(f)), part)
         return self._assemble(f, self.solver.response(s_of_hz(f)))
 
     def dc(self) -> ResponseSet:

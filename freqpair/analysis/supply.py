@@ -52,6 +52,19 @@ def psrr_db(responses_set, rail: str, se_name: str) -> np.ndarray:
         return db(a_se) - db(a_rail)
 
 
+class _Both:
+    """The signal gains of one ResponseSet (every ``sel``-th point) beside the rails'
+    gains of another, read through ``get``."""
+
+    def __init__(self, signal, rails, sel):
+        self.signal, self.rails, self.sel = signal, rails, sel
+
+    def get(self, name):
+        if name in ("a_vpos", "a_vneg"):
+            return self.rails.get(name)
+        return self.signal.get(name)[self.sel]
+
+
 def supply_rejection(resp: StageResponses, grid_hz: np.ndarray, on_grid) -> SupplyRejection:
     """PSRR± at DC and their −3 dB corners.
 
@@ -70,6 +83,12 @@ def supply_rejection(resp: StageResponses, grid_hz: np.ndarray, on_grid) -> Supp
     dc = resp.dc()
     se = single_ended_name(resp)
     a_se0 = abs(complex(dc.get(se)[0]))
+    # bracket on every third point of the grid (the curves are smooth rationals):
+    # the rails' right-hand sides alone, the signal's taken from ``on_grid``
+    coarse = grid_hz[::3]
+    rails = resp.at(coarse, rails_only=True)
+    sel = slice(None, None, 3)
+    on_coarse = _Both(on_grid, rails, sel)
     out = {}
     for rail, key in (("vpos", "pos"), ("vneg", "neg")):
         a_rail0 = abs(complex(dc.get(f"a_{rail}")[0]))
@@ -85,6 +104,6 @@ def supply_rejection(resp: StageResponses, grid_hz: np.ndarray, on_grid) -> Supp
                           for s in s_of_hz(np.atleast_1d(f))])          # (n_f, 2)
             return db(h[:, 0]) - db(h[:, 1])
 
-        corner = lowest_crossing(curve, level - DB_3, grid_hz, psrr_db(on_grid, rail, se))
+        corner = lowest_crossing(curve, level - DB_3, coarse, psrr_db(on_coarse, rail, se))
         out[key] = (level, corner)
     return SupplyRejection(out["pos"][0], out["neg"][0], out["pos"][1], out["neg"][1])

@@ -318,6 +318,18 @@ class FrequencySolver:
         #: names of the unknowns (set by :meth:`Network.solver`), for messages
         self.names: list[str] | None = None
 
+    def with_inputs(self, columns) -> "FrequencySolver":
+        """The same network for a subset of the inputs (columns of B), sharing this
+        solver's QZ reduction: a sweep then solves only those right-hand sides."""
+        import dataclasses
+        cols = list(columns)
+        sub = FrequencySolver(self.G, self.C, self.B[:, cols], self.L)
+        sub.names = self.names
+        sub._s0 = self.s0
+        red = self._reduce()
+        sub._red = dataclasses.replace(red, Bt=red.Bt[:, cols])
+        return sub
+
     @property
     def s0(self) -> float:
         """Frequency scale [rad/s] used to balance the pencil (computed once)."""
