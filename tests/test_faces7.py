@@ -41,8 +41,8 @@ def test_every_json_answer_has_the_second_edition_keys(path):
         assert obj["beta_dc"] == pytest.approx(d.feedback.factor, rel=1e-15)
     noise = obj["noise"]
     assert set(noise) >= {"spot", "band_hz", "input_rms_v", "output_rms_v"}
-    assert noise["band_hz"] == [10.0, 100e3]                       # §7h defaults
-    assert [s["f_hz"] for s in noise["spot"]] == [1e3]
+    assert noise["band_hz"] == list(d.noise.band)                 # §7h (defaults 10 Hz … 100 kHz)
+    assert [s["f_hz"] for s in noise["spot"]] == list(d.noise.spot_frequencies)
     spot = noise["spot"][0]
     assert set(spot) >= {"f_hz", "input_v_rthz", "output_v_rthz", "nf_db", "contributors"}
     shares = [c["share"] for c in spot["contributors"]]
