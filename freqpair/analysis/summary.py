@@ -144,6 +144,9 @@ def format_summary(result) -> str:
             f"r_o = {format_si(ss.ro, 'Ω')}    V_GS = {format_si(op.v_gs, 'V')}")
         add(f"  C_gs = {format_si(ss.c_in, 'F')}    C_gd = {format_si(ss.c_fb, 'F')}    "
             f"V_DS = {format_si(op.v_out_common, 'V')}    V_ov = {format_si(op.v_ov, 'V')}")
+        if ss.gmb:
+            add(f"  g_mb = {format_si(ss.gmb, 'S')} (body effect, V_SB from the body rail)"
+                + (f"    C_sb = {format_si(ss.c_sb, 'F')}" if ss.c_sb else ""))
     tail = result.tail
     if tail is None:
         add("  tail: ideal current source")

@@ -88,12 +88,9 @@ class PairOperatingPoint:
             return {"ic": fin(ss.current), "gm": fin(ss.gm), "rpi": fin(ss.r_in),
                     "ro": fin(ss.ro), "cpi": fin(ss.c_in), "cmu": fin(ss.c_fb),
                     "vce": fin(self.v_out_common), "vcb": fin(self.v_cb)}
-        out = {"id": fin(ss.current), "gm": fin(ss.gm), "ro": fin(ss.ro),
-               "cgs": fin(ss.c_in), "cgd": fin(ss.c_fb), "vds": fin(self.v_out_common),
-               "vgs": fin(self.v_gs)}
-        if ss.gmb:
-            out["gmb"] = fin(ss.gmb)
-        return out
+        return {"id": fin(ss.current), "gm": fin(ss.gm), "ro": fin(ss.ro),
+                "cgs": fin(ss.c_in), "cgd": fin(ss.c_fb), "vds": fin(self.v_out_common),
+                "vgs": fin(self.v_gs)}
 
 
 def _device_current(dev, tail_current: float) -> float:
