@@ -44,6 +44,7 @@ from __future__ import annotations
 
 import contextlib
 import itertools
+import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -100,7 +101,7 @@ CURVES = tuple(_CURVE_POLYS)
 #: The curves that need a balanced (two-output) stage.
 BALANCED_CURVES = ("cmrr_db", "adm_db", "acm_dm_db")
 #: Block height of the small lattice plans (root refinement): fixed, like GEMM_ELEMENTS.
-LATTICE_ROWS = 64
+LATTICE_ROWS = 32
 #: Lattice blocks per stacked product (bounds the temporaries to a few MB).
 LATTICE_BATCH = 32
 _BLAS = None
@@ -196,6 +197,7 @@ class BatchEvaluator:
         for opts in self._options:
             self.monomials = [m + (o,) for o in opts for m in self.monomials]
         self._plans: dict[bytes, _GridPlan] = {}
+        self._plans_lock = threading.Lock()
         # for the direct per-sample solve
         self._G, self._C, self._rhs = G, C, exc
         self._stamp_entries = [[(p, q, U[p, j] * V[q, j]) for p in np.nonzero(U[:, j])[0]
@@ -342,12 +344,14 @@ class BatchEvaluator:
     def _plan(self, s: np.ndarray, polys: tuple = tuple(range(len(_POLYS)))) -> "_GridPlan":
         """The per-frequency coefficients of one grid (cached; a few grids kept)."""
         key = (s.tobytes(), polys)
-        plan = self._plans.get(key)
+        with self._plans_lock:
+            plan = self._plans.get(key)
         if plan is None:
             plan = _GridPlan.build(self, s, polys)
-            if len(self._plans) >= 4:
-                self._plans.pop(next(iter(self._plans)))
-            self._plans[key] = plan
+            with self._plans_lock:
+                if len(self._plans) >= 4:
+                    self._plans.pop(next(iter(self._plans)))
+                self._plans[key] = plan
         return plan
 
     def lattice_plan(self, s: np.ndarray, names=("cmrr_se_db",)) -> "_GridPlan":
@@ -355,11 +359,11 @@ class BatchEvaluator:
         ``names`` only, blocks of :data:`LATTICE_ROWS` samples. Pass it to
         :meth:`db_on_grid`; the caller keeps the plans it wants to reuse."""
         s = np.atleast_1d(np.asarray(s, dtype=complex))
-        return _GridPlan.build(self, s, self._polys_of(names), rows=LATTICE_ROWS)
+        return _GridPlan.build(self, s, self._polys_of(names, det=False), rows=LATTICE_ROWS)
 
-    def _polys_of(self, names) -> tuple:
-        """Polynomial indices needed for ``names`` (the determinant always)."""
-        need = {0}
+    def _polys_of(self, names, det: bool = True) -> tuple:
+        """Polynomial indices needed for ``names`` (and the determinant)."""
+        need = {0} if det else set()
         for name in names:
             if name not in _CURVE_POLYS:
                 raise DesignError(f"curve = {name!r}: unknown (choose from {', '.join(CURVES)})")
@@ -372,24 +376,27 @@ class BatchEvaluator:
         """Per-sample monomials ``(n_samples, n_mono)`` (for :meth:`lattice_cmrr_se`)."""
         return self._monomials(dG, dC)
 
-    def lattice_cmrr_se(self, mono: np.ndarray, plans: list, group: np.ndarray,
-                        ref: np.ndarray) -> np.ndarray:
-        """Single-ended CMRR [dB] ``(n_samples, n_f)``, each sample at the frequencies of
-        its own lattice plan.
+    def lattice_cmrr_se(self, mono: np.ndarray, plans: list, group: np.ndarray) -> np.ndarray:
+        """Single-ended CMRR as a power ratio |A_dm,se/A_cm,se|² ``(n_samples, n_f)``,
+        each sample at the frequencies of its own lattice plan (10·log10 of it is
+        the CMRR in dB).
 
         The lean path of root refinement: ``mono`` from :meth:`monomials_of`,
         ``plans`` from :meth:`lattice_plan` (all of one size), ``group[i]`` the plan
         of sample i. The samples of each plan fill blocks of the plan's fixed
-        height (zero-padded) and all blocks go through one stacked matrix product,
+        height (zero-padded) and the blocks go through stacked matrix products,
         so a sample's value does not depend on the other samples (the same bits in
         any chunk) and the cost does not grow with the number of plans. The
-        arithmetic after the product is that of :meth:`db_on_grid`. The caller
-        runs it inside :func:`single_threaded_blas`.
+        plans hold the two numerators only: without the determinant there is no
+        zero-to-rounding test, so a vanishing common-mode gain gives a large
+        finite CMRR instead of +inf and a singular sample NaN — on which side of
+        a level a point lies is the same either way. The caller runs it inside
+        :func:`single_threaded_blas`.
         """
         n = mono.shape[0]
         p0 = plans[0]
         rows, n_f, n_poly = p0.rows, p0.n_f, len(p0.polys)
-        det, num, den = (p0.polys.index(p) for p in (0,) + _CURVE_POLYS["cmrr_se_db"][:2])
+        num, den = (p0.polys.index(p) for p in _CURVE_POLYS["cmrr_se_db"][:2])
         sizes = np.bincount(group, minlength=len(plans))
         n_blocks = -(-sizes // rows)                       # blocks per plan
         first = np.concatenate([[0], np.cumsum(n_blocks)[:-1]])
@@ -417,17 +424,9 @@ class BatchEvaluator:
         y = y.reshape(n, 2, n_poly, n_f)
         power = np.multiply(y[:, 0], y[:, 0])
         power += y[:, 1] * y[:, 1]
-        val = np.empty((n, n_f))
+        out = np.empty((n, n_f))
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            np.divide(power[:, num], power[:, den], out=val)
-            np.log10(val, out=val)
-        val *= 10.0
-        tiny = (ZERO_GAIN_RATIO * np.asarray(ref, dtype=float)[order]) ** 2
-        pd, pdet = power[:, den], power[:, det]
-        val[pd <= tiny[:, None] * pdet] = np.inf
-        val[~(np.isfinite(pdet) & (pdet > 0))] = np.nan
-        out = np.empty_like(val)
-        out[order] = val
+            out[order] = power[:, num] / power[:, den]
         return out
 
     def _monomials(self, dG: np.ndarray, dC: np.ndarray) -> np.ndarray:
@@ -507,12 +506,18 @@ class BatchEvaluator:
         n = dG.shape[0]
         out = {name: np.empty((n, s.size)) for name in names}
         tiny = (ZERO_GAIN_RATIO * np.asarray(ref, dtype=float)) ** 2
+        power = tmp = floor = zero = None
         for lo, hi, re, im in self._expansions(s, dG, dC, plan):
-            power = np.multiply(re, re)           # |polynomial|², (rows, n_poly, n_f)
-            power += im * im
+            if power is None or power.shape != re.shape:       # buffers, reused per block
+                power, tmp = np.empty(re.shape), np.empty(re.shape)
+                floor, zero = np.empty(re.shape[::2]), np.empty(re.shape[::2], dtype=bool)
+            np.multiply(re, re, out=power)         # |polynomial|², (rows, n_poly, n_f)
+            np.multiply(im, im, out=tmp)
+            power += tmp
             det = power[:, row[0]]
-            floor = tiny[lo:hi, None] * det
-            bad = ~(np.isfinite(det) & (det > 0))
+            np.multiply(tiny[lo:hi, None], det, out=floor)
+            with np.errstate(invalid="ignore"):
+                singular = not (det.min() > 0 and det.max() < np.inf)
             for name in names:
                 num, den, test = _CURVE_POLYS[name]
                 val = out[name][lo:hi]
@@ -521,11 +526,11 @@ class BatchEvaluator:
                     np.divide(pn, pd, out=val)
                     np.log10(val, out=val)
                 val *= 10.0
-                zero = (pd if test == "den" else pn) <= floor
+                np.less_equal(pd if test == "den" else pn, floor, out=zero)
                 if zero.any():
                     val[zero] = np.inf if test == "den" else -np.inf
-                if bad.any():
-                    val[bad] = np.nan
+                if singular:
+                    val[~(np.isfinite(det) & (det > 0))] = np.nan
         return out
 
     def cmrr_on_grid(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray,

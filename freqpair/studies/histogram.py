@@ -118,38 +118,48 @@ class BinnedCounts:
         if n_v == 0:
             return h
         h.n[:] = n_v
-        t = v * (1.0 / width)                    # exact: width is a power of two
-        np.floor(t, out=t)
-        kmin, kmax = t.min(axis=0), t.max(axis=0)
-        if np.all(np.isfinite(kmin)) and np.all(np.isfinite(kmax)):
-            fin = None                           # the common case: no mask needed
-            h.vmin, h.vmax = v.min(axis=0), v.max(axis=0)
+        scale = 1.0 / width                       # exact: width is a power of two
+        vmin, vmax = v.min(axis=0), v.max(axis=0)
+        if np.all(np.isfinite(vmin)) and np.all(np.isfinite(vmax)):
+            fin = None                            # the common case: no mask needed
         else:
-            if np.isnan(v).any():
+            if np.isnan(vmin).any() or np.isnan(vmax).any():
                 raise ValueError("cannot bin NaN")
             fin = np.isfinite(v)
             h.neg_inf = np.count_nonzero(v == -np.inf, axis=0).astype(np.int64)
             h.pos_inf = np.count_nonzero(v == np.inf, axis=0).astype(np.int64)
-            kmin = np.where(fin, t, np.inf).min(axis=0)
-            kmax = np.where(fin, t, -np.inf).max(axis=0)
-            h.vmin = np.where(fin, v, np.inf).min(axis=0)
-            h.vmax = np.where(fin, v, -np.inf).max(axis=0)
-        has = np.isfinite(kmin)
-        if np.any(np.abs(kmin[has]) >= _KEY_LIMIT) or np.any(np.abs(kmax[has]) >= _KEY_LIMIT):
+            vmin = np.where(fin, v, np.inf).min(axis=0)
+            vmax = np.where(fin, v, -np.inf).max(axis=0)
+        h.vmin, h.vmax = vmin, vmax
+        has = np.isfinite(vmin)
+        kmin = np.floor(np.where(has, vmin, 0.0) * scale)       # floor is monotonic: the
+        kmax = np.floor(np.where(has, vmax, 0.0) * scale)       # extremes' bins bound all
+        if np.any(np.abs(kmin) >= _KEY_LIMIT) or np.any(np.abs(kmax) >= _KEY_LIMIT):
             raise ValueError("a value is too large to bin")
-        if not has.any():
-            return h
+        h.lo = kmin.astype(np.int64)
         span = np.where(has, kmax - kmin + 1, 0).astype(np.int64)
-        starts = np.zeros(n_rows, dtype=np.int64)
-        np.cumsum(span[:-1], out=starts[1:])
-        shift = np.where(has, starts - kmin, 0.0)         # exact integers
-        t += shift
-        idx = (t if fin is None else t[fin]).astype(np.int64).ravel()
-        flat = np.bincount(idx, minlength=int(starts[-1] + span[-1]))
-        lo = np.where(has, kmin, 0).astype(np.int64)
-        h.lo = lo
-        for r in np.nonzero(has)[0]:
-            h.counts[r] = flat[starts[r]:starts[r] + span[r]]
+        t = v * scale
+        np.floor(t, out=t)
+        if fin is not None:
+            t[~fin] = 0.0                         # not counted (masked below); castable
+        total = int(span.sum())
+        if total <= 4 * t.size:
+            # narrow rows: one count over all rows' windows laid end to end
+            starts = np.zeros(n_rows, dtype=np.int64)
+            np.cumsum(span[:-1], out=starts[1:])
+            t += starts - kmin                    # exact integers
+            idx = t.astype(np.int64)
+            flat = np.bincount(idx.ravel() if fin is None else idx[fin], minlength=total)
+            for r in np.nonzero(has)[0]:
+                h.counts[r] = flat[starts[r]:starts[r] + span[r]]
+        else:
+            # wide rows (long tails): one count per row, each over its own window
+            t -= kmin                             # exact integers: each row's bins from 0
+            keys = np.empty((n_rows, n_v), dtype=np.int64)
+            keys[...] = t.T
+            for r in np.nonzero(has)[0]:
+                row = keys[r] if fin is None else keys[r][fin[:, r]]
+                h.counts[r] = np.bincount(row, minlength=int(span[r]))
         return h
 
     # ------------------------------------------------------------ merging

@@ -38,6 +38,7 @@ chunks may run anywhere.
 from __future__ import annotations
 
 import math
+import threading
 import zlib
 from collections import OrderedDict
 from dataclasses import dataclass, field
@@ -290,6 +291,7 @@ class _Engine:
                       np.concatenate([self.f_hz[-1:], high]))
         self.log_grids = tuple(np.log10(g) for g in self.grids)
         self._lattice: OrderedDict = OrderedDict()
+        self._lock = threading.Lock()          # tasks on a multi-threaded worker share it
 
     def corners(self, curve, level, dG, dC, ref):
         """Lowest f [Hz] where CMRR_se = level, per sample.
@@ -328,15 +330,17 @@ class _Engine:
     def _plan(self, code: int, a: float, b: float):
         """Lattice plan of the interval [a, b] (log10 f) named by ``code``: the points
         a + (b − a)·m/LATTICE, m = −1 … LATTICE + 1 (cached, least recently used out)."""
-        plan = self._lattice.get(code)
-        if plan is None:
-            x = a + (b - a) * (np.arange(-1, LATTICE + 2) / LATTICE)
-            plan = (x, self.ev.lattice_plan(s_of_hz(10.0 ** x)))
+        with self._lock:
+            plan = self._lattice.get(code)
+            if plan is not None:
+                self._lattice.move_to_end(code)
+                return plan
+        x = a + (b - a) * (np.arange(-1, LATTICE + 2) / LATTICE)
+        plan = (x, self.ev.lattice_plan(s_of_hz(10.0 ** x)))
+        with self._lock:
             self._lattice[code] = plan
             if len(self._lattice) > LATTICE_CACHE:
                 self._lattice.popitem(last=False)
-        else:
-            self._lattice.move_to_end(code)
         return plan
 
     def _refine(self, gid, j, level, dG, dC, ref):
@@ -365,6 +369,7 @@ class _Engine:
         ds4 = np.full((n, 4), np.nan)
         live = np.arange(n)
         depth = 0
+        threshold = 10.0 ** (level / 10.0)          # the level as a power ratio
         with single_threaded_blas():
             mono = self.ev.monomials_of(dG, dC)
             while live.size:
@@ -375,9 +380,8 @@ class _Engine:
                 lattice = [self._plan(int(c), float(a[i]), float(b[i]))
                            for c, i in zip(codes, first)]
                 x = np.array([xp for xp, _ in lattice])[group]   # (n_live, LATTICE + 3)
-                d = self.ev.lattice_cmrr_se(mono[live], [p for _, p in lattice], group,
-                                            ref[live]) - level[live][:, None]
-                above = d[:, 1:LATTICE + 2] > 0                  # points m = 0 … LATTICE
+                ratio = self.ev.lattice_cmrr_se(mono[live], [p for _, p in lattice], group)
+                above = ratio[:, 1:LATTICE + 2] > threshold[live][:, None]   # m = 0 … LATTICE
                 above[:, 0] = True                               # the bracket: above …
                 above[:, -1] = False                             # … then at or below
                 m = _first_fall(above)
@@ -387,8 +391,11 @@ class _Engine:
                 last = levels[live] == depth
                 if last.any():
                     cols = m[last][:, None] + np.arange(4)       # points m−1 … m+2
-                    xs4[live[last]] = np.take_along_axis(x[last], cols, axis=1)
-                    ds4[live[last]] = np.take_along_axis(d[last], cols, axis=1)
+                    fin = live[last]
+                    xs4[fin] = np.take_along_axis(x[last], cols, axis=1)
+                    with np.errstate(divide="ignore", invalid="ignore"):
+                        ds4[fin] = 10.0 * np.log10(np.take_along_axis(ratio[last], cols, axis=1)) \
+                            - level[fin][:, None]
                 live = live[~last]
         hit = ds4[:, 2] == 0                                     # the level, exactly
         est = _inverse_interpolation(xs4, ds4, a, b, ((1, 2), (0, 1, 2), (1, 2, 3), (0, 1, 2, 3)))
@@ -396,6 +403,28 @@ class _Engine:
         # no usable interpolant (a bracket start that was only treated as above it)
         result = np.where(np.isfinite(result), result, np.where(ds4[:, 1] <= 0, a, 0.5 * (a + b)))
         return result
+
+
+_ENGINES: OrderedDict = OrderedDict()
+_ENGINES_LOCK = threading.Lock()
+
+
+def _engine_for(design, spec, f_hz) -> _Engine:
+    """The engine of a design, spec and grid, kept for the next chunk of the same run
+    (a cluster worker runs many tasks of one run: one QZ and one set of lattice plans
+    per worker process, not per task). The cache changes no result."""
+    key = (design, spec, np.asarray(f_hz, dtype=float).tobytes())
+    with _ENGINES_LOCK:
+        eng = _ENGINES.get(key)
+        if eng is not None:
+            _ENGINES.move_to_end(key)
+            return eng
+    eng = _Engine(design, spec, f_hz)
+    with _ENGINES_LOCK:
+        _ENGINES[key] = eng
+        while len(_ENGINES) > 2:
+            _ENGINES.popitem(last=False)
+    return eng
 
 
 def _inverse_interpolation(xs, ds, lo, hi, subsets):
@@ -450,7 +479,7 @@ def run_chunk(design, spec: MonteCarloSpec, start: int, stop: int, seed: int,
     MonteCarloChunk
     """
     f_hz = default_grid(design) if f_hz is None else np.asarray(f_hz, dtype=float)
-    eng = engine or _Engine(design, spec, f_hz)
+    eng = engine or _engine_for(design, spec, f_hz)
     ev = eng.ev
     bal = ev.balanced
     names = ("cmrr_se_db", "cmrr_db") if curves is None and bal else tuple(curves or ())
@@ -598,7 +627,7 @@ def reduce_chunk(design, spec: MonteCarloSpec, start: int, stop: int, seed: int,
     memory stays bounded by that, however long the range.
     """
     f_hz = np.asarray(f_hz, dtype=float)
-    eng = engine or _Engine(design, spec, f_hz)
+    eng = engine or _engine_for(design, spec, f_hz)
     total = None
     for a in range(start, stop, request.chunk):
         ch = run_chunk(design, spec, a, min(stop, a + request.chunk), seed, f_hz, eng,
