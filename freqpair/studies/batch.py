@@ -354,12 +354,15 @@ class BatchEvaluator:
                 self._plans[key] = plan
         return plan
 
-    def lattice_plan(self, s: np.ndarray, names=("cmrr_se_db",)) -> "_GridPlan":
-        """An uncached plan for a few frequencies (root refinement): the polynomials of
-        ``names`` only, blocks of :data:`LATTICE_ROWS` samples. Pass it to
-        :meth:`db_on_grid`; the caller keeps the plans it wants to reuse."""
-        s = np.atleast_1d(np.asarray(s, dtype=complex))
-        return _GridPlan.build(self, s, self._polys_of(names, det=False), rows=LATTICE_ROWS)
+    def lattice_plans(self, s: np.ndarray, names=("cmrr_se_db",)) -> list:
+        """Uncached plans for root refinement, one per row of ``s`` ``(n_plans, n_f)``
+        [rad/s]: the numerators of ``names`` only (no determinant), blocks of
+        :data:`LATTICE_ROWS` samples, built together (the same bits as one by one).
+        Pass them to :meth:`lattice_cmrr_se`; the caller keeps those it reuses."""
+        s = np.atleast_2d(np.asarray(s, dtype=complex))
+        with single_threaded_blas():
+            return _GridPlan.build_lattices(self, s, self._polys_of(names, det=False),
+                                            LATTICE_ROWS)
 
     def _polys_of(self, names, det: bool = True) -> tuple:
         """Polynomial indices needed for ``names`` (and the determinant)."""
@@ -590,8 +593,43 @@ class _GridPlan:
     @classmethod
     def build(cls, ev: BatchEvaluator, s: np.ndarray, polys=None, rows=None) -> "_GridPlan":
         polys = tuple(range(len(_POLYS))) if polys is None else tuple(polys)
+        n_f = s.size
+        w = cls._weights(ev, s, ev.solver.response(s), polys)   # (n_mono, n_poly, n_f)
+        weights = np.ascontiguousarray(
+            np.stack([w.real, w.imag], axis=1).reshape(len(ev.monomials), -1))
+        if rows is None:
+            rows = int(min(256, max(8, GEMM_ELEMENTS // max(n_f, 1))))
+        return cls(weights, int(rows), polys)
+
+    @classmethod
+    def build_lattices(cls, ev: BatchEvaluator, s: np.ndarray, polys, rows) -> list:
+        """One plan per row of ``s`` ``(n_plans, n_f)``, all computed together.
+
+        The nominal responses come from one batched direct solve of every
+        frequency (``FrequencySolver.response_direct``: one LU per frequency, as
+        :meth:`build` gets for a few frequencies) and every minor from one
+        determinant call per size: each value is computed from its own frequency
+        alone, so a plan is the same bits whichever plans are built with it.
+        """
+        n_plans, n_f = s.shape
+        flat = s.ravel()
+        try:
+            H = ev.solver.response_direct(flat)
+        except np.linalg.LinAlgError:               # a singular point: plan by plan
+            H = np.concatenate([ev.solver.response(row) for row in s])
+        w = cls._weights(ev, flat, H, tuple(polys))
+        n_mono = len(ev.monomials)
+        out = []
+        for k in range(n_plans):
+            wk = w[:, :, k * n_f:(k + 1) * n_f]
+            out.append(cls(np.ascontiguousarray(np.stack([wk.real, wk.imag], axis=1)
+                                                .reshape(n_mono, -1)), int(rows), tuple(polys)))
+        return out
+
+    @staticmethod
+    def _weights(ev: BatchEvaluator, s: np.ndarray, H: np.ndarray, polys: tuple) -> np.ndarray:
+        """Monomial weights ``(n_mono, n_poly, n_f)`` from the nominal responses ``H``."""
         r, n_f = ev.rank, s.size
-        H = ev.solver.response(s)                       # (n_f, 2 + r, 2 + r)
         pairs = {1: (0, 0), 2: (0, 1), 3: (1, 0), 4: (1, 1)}   # poly → (output, drive)
         subsets = list(itertools.product((False, True), repeat=r))
         minors = {sub: np.empty((len(polys), n_f), dtype=complex) for sub in subsets}
@@ -621,8 +659,4 @@ class _GridPlan:
         for m, mono in enumerate(ev.monomials):
             subset = tuple(o > 0 for o in mono)
             w[m] = minors[subset] * sp ** sum(o == 2 for o in mono)
-        weights = np.ascontiguousarray(
-            np.stack([w.real, w.imag], axis=1).reshape(len(ev.monomials), -1))
-        if rows is None:
-            rows = int(min(256, max(8, GEMM_ELEMENTS // max(n_f, 1))))
-        return cls(weights, int(rows), polys)
+        return w

@@ -229,8 +229,7 @@ class BinnedCounts:
             if n == 0:
                 continue
             lower, upper, gamma = lerp_percentile_index(n, q)
-            a = self.order_statistics(row, lower)
-            b = self.order_statistics(row, upper)
+            a, b = np.split(self.order_statistics(row, np.concatenate([lower, upper])), 2)
             if transform is not None:
                 with np.errstate(over="ignore"):
                     a, b = transform(a), transform(b)

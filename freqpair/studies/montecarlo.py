@@ -72,8 +72,8 @@ LATTICE = 16
 #: interpolation: measured within 2e-11 decades of a secant iteration on direct
 #: solves (the CMRR itself carries ~1e-11 dB of rounding).
 LATTICE_STEP = 5e-4
-#: Lattice plans kept per engine (each ≈ 30 kB; a wide spread needs a few hundred).
-LATTICE_CACHE = 4096
+#: Lattice plans kept per engine (each ≈ 20 kB; a wide spread needs a few hundred).
+LATTICE_CACHE = 2048
 #: On a cluster a task runs up to this many chunks of ``chunk`` samples one after
 #: another and returns one summary (fewer, larger results to send back).
 TASK_CHUNKS = 16
@@ -327,21 +327,29 @@ class _Engine:
                                              dC[todo], ref[todo])
         return out
 
-    def _plan(self, code: int, a: float, b: float):
-        """Lattice plan of the interval [a, b] (log10 f) named by ``code``: the points
-        a + (b − a)·m/LATTICE, m = −1 … LATTICE + 1 (cached, least recently used out)."""
+    def _plans(self, codes, a, b) -> list:
+        """Lattice plans of the intervals [a_k, b_k] (log10 f) named by ``codes``: the
+        points a + (b − a)·m/LATTICE, m = −1 … LATTICE + 1, as ``(x, plan)`` pairs.
+        Plans not yet cached are built together; least recently used ones go."""
+        out: list = [None] * len(codes)
         with self._lock:
-            plan = self._lattice.get(code)
-            if plan is not None:
-                self._lattice.move_to_end(code)
-                return plan
-        x = a + (b - a) * (np.arange(-1, LATTICE + 2) / LATTICE)
-        plan = (x, self.ev.lattice_plan(s_of_hz(10.0 ** x)))
-        with self._lock:
-            self._lattice[code] = plan
-            if len(self._lattice) > LATTICE_CACHE:
-                self._lattice.popitem(last=False)
-        return plan
+            for k, c in enumerate(codes):
+                hit = self._lattice.get(int(c))
+                if hit is not None:
+                    self._lattice.move_to_end(int(c))
+                    out[k] = hit
+        missing = [k for k, hit in enumerate(out) if hit is None]
+        if missing:
+            steps = np.arange(-1, LATTICE + 2) / LATTICE
+            x = np.array([a[k] + (b[k] - a[k]) * steps for k in missing])
+            plans = self.ev.lattice_plans(s_of_hz(10.0 ** x))
+            with self._lock:
+                for k, xk, plan in zip(missing, x, plans):
+                    out[k] = (xk, plan)
+                    self._lattice[int(codes[k])] = out[k]
+                while len(self._lattice) > LATTICE_CACHE:
+                    self._lattice.popitem(last=False)
+        return out
 
     def _refine(self, gid, j, level, dG, dC, ref):
         """log10 of the corner of samples bracketed in [x_j, x_j+1] of grid ``gid``.
@@ -377,8 +385,7 @@ class _Engine:
                 codes, group = np.unique(code[live], return_inverse=True)
                 first = np.zeros(codes.size, dtype=int)
                 first[group[::-1]] = live[::-1]                  # a sample of each bracket
-                lattice = [self._plan(int(c), float(a[i]), float(b[i]))
-                           for c, i in zip(codes, first)]
+                lattice = self._plans(codes, a[first], b[first])
                 x = np.array([xp for xp, _ in lattice])[group]   # (n_live, LATTICE + 3)
                 ratio = self.ev.lattice_cmrr_se(mono[live], [p for _, p in lattice], group)
                 above = ratio[:, 1:LATTICE + 2] > threshold[live][:, None]   # m = 0 … LATTICE
@@ -895,7 +902,7 @@ def run_montecarlo(design, spec: MonteCarloSpec, n: int, seed: int, f_hz=None,
     q = tuple(float(x) for x in percentiles)
     if not q or not all(0 <= x <= 100 for x in q):
         raise MonteCarloError(f"percentiles = {percentiles!r}: each in [0, 100]")
-    eng = _Engine(design, spec, f)           # checks the keys; the local run uses it
+    eng = _engine_for(design, spec, f)       # checks the keys; the local run uses it
     bal = eng.ev.balanced
     if curves is None:
         names = ("cmrr_se_db", "cmrr_db") if bal else ("cmrr_se_db",)
