@@ -165,6 +165,11 @@ def test_benchmark_smoke_runs_at_tiny_size():
     spec.loader.exec_module(mod)
     out = mod.main(["--samples", "20", "--points", "10", "--loop", "2"])
     assert out["ratio"] > 0
+    one = mod.one_run(300, 10, 0, 64)          # what --scale runs in each fresh process
+    assert one["n"] == 300 and one["rss_mb"] > 0 and 0 <= one["yield_70db_1mhz"] <= 1
+    # the accuracy mode's figures: oracle numpy.percentile of the kept samples
+    acc = mod.accuracy(300, 10)
+    assert max(v for k, v in acc.items() if k != "corner_relative") <= 2.0 ** -8
 
 
 # ---------------------------------------------------------------- engine internals
