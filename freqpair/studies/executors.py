@@ -12,7 +12,9 @@ executor. Two executors share one method, :meth:`map_chunks`:
   cluster (a scheduler address such as ``"tcp://10.0.0.5:8786"`` or a
   ``Client`` made by the caller). The cluster's own scheduler places them,
   retries the tasks of a worker that dies, and returns the results; freqpair
-  adds nothing of its own to that machinery.
+  adds nothing of its own to that machinery. Tasks are submitted as earlier
+  ones are handed back, a bounded window at a time, so the client holds only
+  a few results whatever the number of chunks.
 
 ``dask[distributed]`` is an optional extra (``pip install "freqpair[cluster]"``)
 and is imported only when a :class:`DaskExecutor` is made.
@@ -129,7 +131,9 @@ class DaskExecutor(Executor):
     Notes
     -----
     Workers must be able to import ``freqpair`` (the same version as the
-    client): the tasks name its functions, they do not ship its code.
+    client): the tasks name its functions, they do not ship its code. At most
+    :attr:`window` chunks are submitted and not yet handed back (an ordered
+    run's results waiting for an earlier chunk count against it).
     """
 
     def __init__(self, client_or_address, chunks_per_slot: int = 4, min_chunk: int = 256,

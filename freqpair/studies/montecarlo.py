@@ -420,7 +420,7 @@ def _engine_for(design, spec, f_hz) -> _Engine:
     """The engine of a design, spec and grid, kept for the next chunk of the same run
     (a cluster worker runs many tasks of one run: one QZ and one set of lattice plans
     per worker process, not per task). The cache changes no result."""
-    key = (design, spec, np.asarray(f_hz, dtype=float).tobytes())
+    key = (design, spec.keys, np.asarray(f_hz, dtype=float).tobytes())
     with _ENGINES_LOCK:
         eng = _ENGINES.get(key)
         if eng is not None:
