@@ -120,7 +120,7 @@ def cluster():
 
 @pytest.fixture(scope="module")
 def local_mc(design):
-    return run_montecarlo(design, SPEC, 3000, seed=11, f_hz=F)
+    return run_montecarlo(design, SPEC, 3000, seed=11, f_hz=F, keep_samples=True)
 
 
 def test_dask_executor_gives_results_in_argument_order_when_they_finish_out_of_order(cluster):
@@ -136,7 +136,8 @@ def test_monte_carlo_on_the_cluster_equals_the_local_run_exactly(cluster, design
     # oracle: the local executor's run (same seed) — bit-identical, not merely close
     ex = DaskExecutor(cluster[1])
     done = []
-    res = run_montecarlo(design, SPEC, 3000, seed=11, f_hz=F, executor=ex, progress=done.append)
+    res = run_montecarlo(design, SPEC, 3000, seed=11, f_hz=F, executor=ex, progress=done.append,
+                         keep_samples=True)
     assert sum(done) == 3000 and len(done) > 1          # split into several tasks
     for name in ("cmrr_se_db_f", "cmrr_db_f", "cmrr_se_dc_db", "cmrr_dc_db", "corner_hz",
                  "band_cmrr_se_db", "band_cmrr_db", "dc_adm", "dc_acm_dm"):
@@ -147,10 +148,46 @@ def test_monte_carlo_on_the_cluster_equals_the_local_run_exactly(cluster, design
         json.dumps(local_mc.to_json((70.0, float(F[20]))))
 
 
+def test_streamed_monte_carlo_on_the_cluster_equals_the_local_run_bit_for_bit(cluster, design):
+    # oracle: the local executor's run (same seed, another chunk size): every histogram,
+    # every yield count and the JSON answer are the same bits, merged in whatever order
+    # the cluster's tasks finished
+    yields = [(70.0, 1.3e6), (100.0, 2e4, "balanced")]
+    a = run_montecarlo(design, SPEC, 4000, seed=3, f_hz=F, chunk=1000, yields=yields)
+    b = run_montecarlo(design, SPEC, 4000, seed=3, f_hz=F, chunk=300, yields=yields,
+                       executor=DaskExecutor(cluster[1], min_chunk=100, chunks_per_slot=8))
+    for name in a.summary.curves:
+        assert a.summary.curves[name] == b.summary.curves[name], name
+    for name in a.summary.dc:
+        assert a.summary.dc[name] == b.summary.dc[name], name
+    assert a.summary.corner == b.summary.corner
+    np.testing.assert_array_equal(a.summary.yield_counts, b.summary.yield_counts)
+    assert json.dumps(a.to_json((70.0, 1.3e6))) == json.dumps(b.to_json((70.0, 1.3e6)))
+    assert a.yields == b.yields
+
+
+def test_dask_executor_keeps_only_a_window_of_chunks_in_flight(cluster):
+    # common practice: bounded buffering — the chunk arguments are drawn lazily, never
+    # more than the window ahead of the results handed on
+    ex = DaskExecutor(cluster[1])
+    drawn = []
+
+    def args():
+        for i in range(60):
+            drawn.append(i)
+            yield (i, 0.0)
+    seen = []
+    for r in ex.map_chunks(_tagged, args()):
+        seen.append(r)
+        assert len(drawn) - len(seen) <= ex.window
+    assert seen == list(range(60)) and ex.window < 60
+
+
 def test_scheduler_address_works_like_a_client(cluster, design):
     # oracle: the local executor's run; the address form opens and closes its own client
-    a = run_montecarlo(design, SPEC, 500, seed=2, f_hz=F)
-    b = run_montecarlo(design, SPEC, 500, seed=2, f_hz=F, executor=cluster[0].scheduler_address)
+    a = run_montecarlo(design, SPEC, 500, seed=2, f_hz=F, keep_samples=True)
+    b = run_montecarlo(design, SPEC, 500, seed=2, f_hz=F, executor=cluster[0].scheduler_address,
+                       keep_samples=True)
     np.testing.assert_array_equal(a.cmrr_se_db_f, b.cmrr_se_db_f)
     np.testing.assert_array_equal(a.corner_hz, b.corner_hz)
 
@@ -171,6 +208,10 @@ def test_sweep_on_the_cluster_equals_the_local_sweep_exactly(cluster, design):
     for k in a.curves:
         np.testing.assert_array_equal(a.curves[k], b.curves[k], err_msg=k)
     assert a.to_csv() == b.to_csv()
+    from freqpair.studies.sweep import SweepResult, iter_sweep_rows
+    streamed = "".join(SweepResult.csv_stream(iter_sweep_rows(
+        design, axes, at_hz=1e5, executor=DaskExecutor(cluster[1]), chunk=2)))
+    assert streamed == a.to_csv()
 
 
 def test_target_over_a_grid_on_the_cluster_equals_the_local_solve(cluster, design):
@@ -221,7 +262,7 @@ def test_a_worker_killed_mid_run_is_recovered_and_the_result_is_identical(cluste
 
     ex = DaskExecutor(client, min_chunk=100, chunks_per_slot=8)   # 16+ tasks of ≤ 188
     res = run_montecarlo(design, SPEC, 3000, seed=11, f_hz=F, executor=ex,
-                         progress=kill_on_first_result)
+                         progress=kill_on_first_result, keep_samples=True)
     assert killed and killed[0] in before
     np.testing.assert_array_equal(res.cmrr_se_db_f, local_mc.cmrr_se_db_f)
     np.testing.assert_array_equal(res.corner_hz, local_mc.corner_hz)

@@ -7,11 +7,19 @@ Axis syntax (``--vary``)::
     KEY=V1,V2,V3              an explicit list
 
 Values take SI prefixes and units ("2p", "2 pF", "1 mA").
+
+CSV output is written as the chunks finish, in grid order (to ``--out`` through a
+temporary file renamed at the end, or to stdout), so a grid of any size runs in
+bounded memory; JSON output gathers the whole table first.
 """
 from __future__ import annotations
 
+import contextlib
 import math
+import os
 import sys
+import tempfile
+from pathlib import Path
 
 from freqpair.cli.common import (
     CliError,
@@ -22,7 +30,50 @@ from freqpair.cli.common import (
     run_with_progress,
 )
 
-__all__ = ["register", "parse_axis"]
+__all__ = ["register", "parse_axis", "atomic_text_file", "write_pieces"]
+
+
+@contextlib.contextmanager
+def atomic_text_file(path):
+    """A text file for ``path`` written as it goes, atomically.
+
+    The text goes to a temporary file in the same folder, renamed over ``path``
+    when the block ends; on any error the temporary file is removed and ``path``
+    is left as it was — the streaming form of
+    :func:`freqpair.design.files.atomic_write_text` (same file mode rules).
+    """
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent or ".")
+    try:
+        try:                               # the mode a plain open() would give
+            mode = os.stat(path).st_mode & 0o777
+        except OSError:
+            umask = os.umask(0o022)
+            os.umask(umask)
+            mode = 0o666 & ~umask
+        os.chmod(tmp, mode)
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            yield fh
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+
+
+def write_pieces(pieces, out: str | None) -> None:
+    """Text pieces to the file ``out`` (atomically, as they come) or to stdout."""
+    if out:
+        with atomic_text_file(out) as fh:
+            for piece in pieces:
+                fh.write(piece)
+    else:
+        for piece in pieces:
+            sys.stdout.write(piece)
 
 
 def parse_axis(text: str):
@@ -53,14 +104,21 @@ def cmd_sweep(args) -> int:
     metrics = tuple(m.strip() for m in args.metrics.split(",")) if args.metrics \
         else DEFAULT_METRICS
     at_hz = _num(args.at, "--at") if args.at else None
-    result = run_with_progress(args, math.prod(len(a.values) for a in axes), "sweep",
-                               lambda ex, cb: sweep(design, axes, metrics=metrics,
-                                                    curves=args.curves, at_hz=at_hz,
-                                                    progress=cb, executor=ex))
     fmt = args.format or ("json" if args.out and args.out.endswith(".json") else "csv")
     if args.curves and fmt == "csv":
         raise CliError("--curves: curves need --format json (CSV holds the metric table)")
-    text = result.to_json_text() + "\n" if fmt == "json" else result.to_csv()
+    total = math.prod(len(a.values) for a in axes)
+    if fmt == "csv":                      # rows written as chunks finish, in grid order
+        from freqpair.studies.sweep import SweepResult, iter_sweep_rows
+        run_with_progress(args, total, "sweep", lambda ex, cb: write_pieces(
+            SweepResult.csv_stream(iter_sweep_rows(design, axes, metrics=metrics, at_hz=at_hz,
+                                                   progress=cb, executor=ex)), args.out))
+        return 0
+    result = run_with_progress(args, total, "sweep",
+                               lambda ex, cb: sweep(design, axes, metrics=metrics,
+                                                    curves=args.curves, at_hz=at_hz,
+                                                    progress=cb, executor=ex))
+    text = result.to_json_text() + "\n"
     if args.out:
         atomic_write_text(args.out, text)
     else:

@@ -1,6 +1,7 @@
 """``freqpair target``: the edge value of one design key for which a metric meets a bound.
 
-With ``--over AXIS`` the target is solved at every point of a grid (CSV or JSON).
+With ``--over AXIS`` the target is solved at every point of a grid (CSV or JSON); the
+CSV rows are written as the chunks finish, in grid order (bounded memory).
 """
 from __future__ import annotations
 
@@ -15,7 +16,7 @@ from freqpair.cli.common import (
     print_json,
     run_with_progress,
 )
-from freqpair.cli.sweep import parse_axis
+from freqpair.cli.sweep import parse_axis, write_pieces
 
 __all__ = ["register", "cmd_target"]
 
@@ -53,13 +54,21 @@ def cmd_target(args) -> int:
 
 def _target_over(args, design, key, kind, bound, bounds, at_hz) -> int:
     """``freqpair target … --over AXIS``: the target at every grid point (CSV or JSON)."""
-    from freqpair.studies.target_grid import solve_target_grid
+    from freqpair.studies.target_grid import TargetGridResult, iter_target_rows, \
+        solve_target_grid
     axes = [parse_axis(t) for t in args.over]
-    res = run_with_progress(args, math.prod(len(a.values) for a in axes), "target",
+    total = math.prod(len(a.values) for a in axes)
+    if not args.json:                     # CSV rows written as chunks finish, in grid order
+        run_with_progress(args, total, "target", lambda ex, cb: write_pieces(
+            TargetGridResult.csv_stream(iter_target_rows(
+                design, axes, key, args.metric, bound, kind, bounds, at_hz, args.want,
+                progress=cb, executor=ex, face="cli")), None))
+        return 0
+    res = run_with_progress(args, total, "target",
                             lambda ex, cb: solve_target_grid(
                                 design, axes, key, args.metric, bound, kind, bounds, at_hz,
                                 args.want, progress=cb, executor=ex, face="cli"))
-    sys.stdout.write(res.to_json_text() + "\n" if args.json else res.to_csv())
+    sys.stdout.write(res.to_json_text() + "\n")
     return 0
 
 

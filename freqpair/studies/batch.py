@@ -32,8 +32,10 @@ of per-sample monomials (products of ΔG's and ΔC's, real) times per-frequency
 weights (minor × s^m, complex): one real matrix product for all samples and
 frequencies. The CMRR is a ratio of two numerators (the determinant cancels).
 
-At one frequency per sample (root refinement) each sample's own ``G + s·C``
-is solved directly.
+Root refinement (CMRR corners) evaluates the same expansion on fixed lattices
+of frequencies (:meth:`BatchEvaluator.db_on_grid` with a small plan), so no
+sample ever needs its own n × n solve; :meth:`BatchEvaluator.paired` (each
+sample's own ``G + s·C`` solved directly) stays as an independent check.
 
 Array layout: samples first, then frequency: ``(n_samples, n_f, ...)``.
 Outputs are the rows ``[o1 − o2, o2]`` and excitations the columns ``[DM, CM]``.
@@ -42,16 +44,18 @@ from __future__ import annotations
 
 import contextlib
 import itertools
+import threading
 from dataclasses import dataclass
 
 import numpy as np
 
 from freqpair.design.errors import DesignError
 from freqpair.circuit.network import GROUND, FrequencySolver
-from freqpair.analysis.responses import _B_CM, _B_DM, ZERO_GAIN_RATIO
+from freqpair.analysis.responses import ZERO_GAIN_RATIO
 from freqpair.circuit.stage import build_stage
 
-__all__ = ["BatchEvaluator", "BATCH_KEYS", "BatchGains"]
+__all__ = ["BatchEvaluator", "BATCH_KEYS", "BatchGains", "CURVES", "BALANCED_CURVES",
+           "excitations", "single_threaded_blas"]
 
 #: Design keys a batched evaluation can vary (values that do not move the bias).
 BATCH_KEYS = ("mismatch.load", "mismatch.gm", "tail.resistance", "tail.capacitance",
@@ -80,11 +84,31 @@ SOLVE_BLOCK = 1024
 #: Polynomials of the grid expansion: det(I + D·K), then the numerators of
 #: (balanced, DM), (balanced, CM), (o2, DM), (o2, CM).
 _POLYS = ("det", "adm", "acm_dm", "adm_se", "acm_se")
+#: Per-frequency values [dB] of :meth:`BatchEvaluator.db_on_grid`: name → (numerator
+#: polynomial, denominator polynomial, which one the zero-to-rounding rule tests).
+#: A CMRR whose common-mode gain is zero to rounding is +inf; such a gain is −inf dB.
+_CURVE_POLYS = {
+    "cmrr_se_db": (3, 4, "den"),
+    "cmrr_db": (1, 2, "den"),
+    "adm_db": (1, 0, "num"),
+    "adm_se_db": (3, 0, "num"),
+    "acm_se_db": (4, 0, "num"),
+    "acm_dm_db": (2, 0, "num"),
+}
+#: Curve names [dB]: CMRRs (single-ended, balanced) and the gains |A_dm|, |A_dm,se|,
+#: |A_cm,se|, |A_cm-dm| (DESIGN.md §2).
+CURVES = tuple(_CURVE_POLYS)
+#: The curves that need a balanced (two-output) stage.
+BALANCED_CURVES = ("cmrr_db", "adm_db", "acm_dm_db")
+#: Block height of the small lattice plans (root refinement): fixed, like GEMM_ELEMENTS.
+LATTICE_ROWS = 32
+#: Lattice blocks per stacked product (bounds the temporaries to a few MB).
+LATTICE_BATCH = 32
 _BLAS = None
 
 
 @contextlib.contextmanager
-def _single_threaded_blas():
+def single_threaded_blas():
     """BLAS on one thread: identical results with any thread count (workers of a
     cluster run single-threaded) and, for these small products, faster on a busy
     machine (worker-thread wake-ups)."""
@@ -102,6 +126,17 @@ def _single_threaded_blas():
 
 def _split(delta, side):
     return 1.0 + (delta / 2.0 if side == 1 else -delta / 2.0)
+
+
+def excitations(B: np.ndarray) -> np.ndarray:
+    """The differential and common-mode drives ``(n, 2)`` from the input matrix ``B``.
+
+    The first two columns of ``B`` are the inputs in1, in2 (DESIGN.md §2):
+    v_id = v_in1 − v_in2 = 1 is ``[0.5, −0.5]``, v_ic = 1 is ``[1, 1]``. Any further
+    columns (other sources, e.g. the supply rails) are not driven.
+    """
+    inputs = B[:, :2]
+    return np.column_stack([inputs @ np.array([0.5, -0.5]), inputs @ np.array([1.0, 1.0])])
 
 
 class BatchEvaluator:
@@ -146,8 +181,10 @@ class BatchEvaluator:
         U = np.array([p[1] for p in patterns]).T.reshape(self.n, self.rank)
         V = np.array([p[2] for p in patterns]).T.reshape(self.n, self.rank)
         rows = np.array([net.selector({"o1": 1.0, "o2": -1.0}), net.selector({"o2": 1.0})])
-        exc = np.column_stack([B @ _B_DM, B @ _B_CM])
+        exc = excitations(B)
         self.solver = FrequencySolver(G, C, np.hstack([exc, U]), np.vstack([rows, V.T]))
+        #: the solver's frequency scale [rad/s] (the expansion's s/s0 and s0·ΔC)
+        self.s0 = self.solver.s0
         # per column: which factors its delta has (0: absent, 1: ΔG, 2: s·ΔC)
         has_g = [any(c == col and k != "C" for c, k, _, _ in self._slots)
                  for col in range(self.rank)]
@@ -160,6 +197,7 @@ class BatchEvaluator:
         for opts in self._options:
             self.monomials = [m + (o,) for o in opts for m in self.monomials]
         self._plans: dict[bytes, _GridPlan] = {}
+        self._plans_lock = threading.Lock()
         # for the direct per-sample solve
         self._G, self._C, self._rhs = G, C, exc
         self._stamp_entries = [[(p, q, U[p, j] * V[q, j]) for p in np.nonzero(U[:, j])[0]
@@ -303,44 +341,127 @@ class BatchEvaluator:
         return self._gains(self._combine(H0, P, Q, K, dG.astype(complex)))
 
     # ------------------------------------------------------------ on a grid
-    def _plan(self, s: np.ndarray) -> "_GridPlan":
+    def _plan(self, s: np.ndarray, polys: tuple = tuple(range(len(_POLYS)))) -> "_GridPlan":
         """The per-frequency coefficients of one grid (cached; a few grids kept)."""
-        key = s.tobytes()
-        plan = self._plans.get(key)
+        key = (s.tobytes(), polys)
+        with self._plans_lock:
+            plan = self._plans.get(key)
         if plan is None:
-            plan = _GridPlan.build(self, s)
-            if len(self._plans) >= 4:
-                self._plans.pop(next(iter(self._plans)))
-            self._plans[key] = plan
+            plan = _GridPlan.build(self, s, polys)
+            with self._plans_lock:
+                if len(self._plans) >= 4:
+                    self._plans.pop(next(iter(self._plans)))
+                self._plans[key] = plan
         return plan
+
+    def lattice_plans(self, s: np.ndarray, names=("cmrr_se_db",)) -> list:
+        """Uncached plans for root refinement, one per row of ``s`` ``(n_plans, n_f)``
+        [rad/s]: the numerators of ``names`` only (no determinant), blocks of
+        :data:`LATTICE_ROWS` samples, built together (the same bits as one by one).
+        Pass them to :meth:`lattice_cmrr_se`; the caller keeps those it reuses."""
+        s = np.atleast_2d(np.asarray(s, dtype=complex))
+        with single_threaded_blas():
+            return _GridPlan.build_lattices(self, s, self._polys_of(names, det=False),
+                                            LATTICE_ROWS)
+
+    def _polys_of(self, names, det: bool = True) -> tuple:
+        """Polynomial indices needed for ``names`` (and the determinant)."""
+        need = {0} if det else set()
+        for name in names:
+            if name not in _CURVE_POLYS:
+                raise DesignError(f"curve = {name!r}: unknown (choose from {', '.join(CURVES)})")
+            if name in BALANCED_CURVES and not self.balanced:
+                raise DesignError(f"curve = {name!r}: this stage has no balanced output")
+            need.update(_CURVE_POLYS[name][:2])
+        return tuple(sorted(need))
+
+    def monomials_of(self, dG: np.ndarray, dC: np.ndarray) -> np.ndarray:
+        """Per-sample monomials ``(n_samples, n_mono)`` (for :meth:`lattice_cmrr_se`)."""
+        return self._monomials(dG, dC)
+
+    def lattice_cmrr_se(self, mono: np.ndarray, plans: list, group: np.ndarray) -> np.ndarray:
+        """Single-ended CMRR as a power ratio |A_dm,se/A_cm,se|² ``(n_samples, n_f)``,
+        each sample at the frequencies of its own lattice plan (10·log10 of it is
+        the CMRR in dB).
+
+        The lean path of root refinement: ``mono`` from :meth:`monomials_of`,
+        ``plans`` from :meth:`lattice_plan` (all of one size), ``group[i]`` the plan
+        of sample i. The samples of each plan fill blocks of the plan's fixed
+        height (zero-padded) and the blocks go through stacked matrix products,
+        so a sample's value does not depend on the other samples (the same bits in
+        any chunk) and the cost does not grow with the number of plans. The
+        plans hold the two numerators only: without the determinant there is no
+        zero-to-rounding test, so a vanishing common-mode gain gives a large
+        finite CMRR instead of +inf and a singular sample NaN — on which side of
+        a level a point lies is the same either way. The caller runs it inside
+        :func:`single_threaded_blas`.
+        """
+        n = mono.shape[0]
+        p0 = plans[0]
+        rows, n_f, n_poly = p0.rows, p0.n_f, len(p0.polys)
+        num, den = (p0.polys.index(p) for p in _CURVE_POLYS["cmrr_se_db"][:2])
+        sizes = np.bincount(group, minlength=len(plans))
+        n_blocks = -(-sizes // rows)                       # blocks per plan
+        first = np.concatenate([[0], np.cumsum(n_blocks)[:-1]])
+        order = np.argsort(group, kind="stable")
+        starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+        rank = np.arange(n) - starts[group[order]]         # position within its plan
+        block = first[group[order]] + rank // rows
+        row = rank % rows
+        plan_of_block = np.repeat(np.arange(len(plans)), n_blocks)
+        y = np.empty((n, p0.weights.shape[1]))
+        sorted_mono = mono[order]
+        # the blocks in batches of LATTICE_BATCH: bounded temporaries; the samples of a
+        # batch are contiguous in ``order`` (blocks follow the plans' order)
+        edges = np.searchsorted(block, np.arange(0, plan_of_block.size + LATTICE_BATCH,
+                                                 LATTICE_BATCH))
+        for k, (lo, hi) in enumerate(zip(edges[:-1], edges[1:])):
+            if lo == hi:
+                continue
+            b0 = k * LATTICE_BATCH
+            blocks = plan_of_block[b0:b0 + LATTICE_BATCH]
+            mono_b = np.zeros((blocks.size, rows, mono.shape[1]))
+            mono_b[block[lo:hi] - b0, row[lo:hi]] = sorted_mono[lo:hi]
+            w = np.stack([plans[g].weights for g in blocks])
+            y[lo:hi] = np.matmul(mono_b, w)[block[lo:hi] - b0, row[lo:hi]]
+        y = y.reshape(n, 2, n_poly, n_f)
+        power = np.multiply(y[:, 0], y[:, 0])
+        power += y[:, 1] * y[:, 1]
+        out = np.empty((n, n_f))
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            out[order] = power[:, num] / power[:, den]
+        return out
 
     def _monomials(self, dG: np.ndarray, dC: np.ndarray) -> np.ndarray:
         """Per-sample monomials ``(n_samples, n_mono)`` in the order of :attr:`monomials`."""
         out = np.ones((dG.shape[0], 1))
-        dCs = dC * self.solver.s0            # s/s0 · (s0·ΔC): both factors of order one
+        dCs = dC * self.s0                   # s/s0 · (s0·ΔC): both factors of order one
         for j, opts in enumerate(self._options):
             out = np.concatenate([out if o == 0 else out * (dG if o == 1 else dCs)[:, j, None]
                                   for o in opts], axis=1)
         return out
 
-    def _expansions(self, s, dG, dC):
-        """Yield ``(lo, hi, re, im)``: the determinant and numerator polynomials of
-        samples ``lo … hi−1`` as real and imaginary parts, each ``(hi−lo, n_poly, n_f)``.
+    def _expansions(self, s, dG, dC, plan=None):
+        """Yield ``(lo, hi, re, im)``: the polynomials of ``plan`` (default: the
+        determinant and all numerators, in :data:`_POLYS` order) of samples
+        ``lo … hi−1`` as real and imaginary parts, each ``(hi−lo, n_poly, n_f)``.
 
-        One real matrix product per block of samples, zero-padded to the fixed
-        height set by :data:`GEMM_ELEMENTS`, with BLAS single-threaded: every call
-        has the same shapes, so a sample's values do not depend on which other
-        samples share its block (chunking-independent, bit for bit).
+        One real matrix product per block of samples, zero-padded to the plan's
+        fixed height, with BLAS single-threaded: every call has the same shapes,
+        so a sample's values do not depend on which other samples share its block
+        (chunking-independent, bit for bit).
         """
-        plan = self._plan(s)
+        plan = self._plan(s) if plan is None else plan
         n = dG.shape[0]
         rows = plan.rows
-        with _single_threaded_blas():
+        n_poly = len(plan.polys)
+        mono = np.empty((rows, plan.weights.shape[0]))
+        with single_threaded_blas():
             for lo in range(0, n, rows):
                 hi = min(n, lo + rows)
-                mono = np.zeros((rows, plan.weights.shape[0]))
+                mono[hi - lo:] = 0.0
                 mono[:hi - lo] = self._monomials(dG[lo:hi], dC[lo:hi])
-                out = (mono @ plan.weights)[:hi - lo].reshape(hi - lo, 2, len(_POLYS), s.size)
+                out = (mono @ plan.weights)[:hi - lo].reshape(hi - lo, 2, n_poly, s.size)
                 yield lo, hi, out[:, 0], out[:, 1]
 
     def on_grid(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray) -> BatchGains:
@@ -354,9 +475,9 @@ class BatchEvaluator:
                 H[lo:hi] = poly[:, 1:] / poly[:, :1]
         return self._gains(np.moveaxis(H.reshape(n, 2, 2, s.size), -1, 1))
 
-    def cmrr_on_grid(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray,
-                     ref: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
-        """Single-ended and balanced CMRR [dB] of every sample at every ``s`` [rad/s].
+    def db_on_grid(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray, ref: np.ndarray,
+                   names=("cmrr_se_db",), plan=None) -> dict:
+        """Curves [dB] of every sample at every ``s`` [rad/s].
 
         Parameters
         ----------
@@ -366,37 +487,62 @@ class BatchEvaluator:
             From :meth:`deltas`.
         ref : ndarray (n_samples,)
             Each sample's |A_dm(0)|: a common-mode gain below 1e-12 of it is zero
-            and its CMRR +inf (DESIGN.md §2).
+            to rounding (DESIGN.md §2): its CMRR +inf, its own dB value −inf.
+        names : sequence of str
+            From :data:`CURVES`.
+        plan : optional
+            From :meth:`lattice_plan` (its frequencies must be ``s``).
 
         Returns
         -------
-        cmrr_se_db, cmrr_db : ndarray (n_samples, n_f)
-            CMRR [dB] (+inf where infinite, NaN where the sample is singular);
-            ``cmrr_db`` is None without a balanced output.
+        dict of str → ndarray (n_samples, n_f)
+            NaN where the sample is singular.
         """
         s = np.atleast_1d(np.asarray(s, dtype=complex))
+        names = tuple(names)
+        polys = self._polys_of(names)
+        if plan is None:
+            plan = self._plan(s, polys)
+        elif not set(polys) <= set(plan.polys):
+            raise ValueError(f"plan lacks polynomials for {names}")
+        row = {p: i for i, p in enumerate(plan.polys)}
         n = dG.shape[0]
-        cse = np.empty((n, s.size))
-        cbal = np.empty((n, s.size)) if self.balanced else None
+        out = {name: np.empty((n, s.size)) for name in names}
         tiny = (ZERO_GAIN_RATIO * np.asarray(ref, dtype=float)) ** 2
-        pairs = [(cse, 3, 4)] + ([(cbal, 1, 2)] if self.balanced else [])
-        for lo, hi, re, im in self._expansions(s, dG, dC):
-            power = np.multiply(re, re)           # |polynomial|², (rows, n_poly, n_f)
-            power += im * im
-            floor = tiny[lo:hi, None] * power[:, 0]
-            bad = ~(np.isfinite(power[:, 0]) & (power[:, 0] > 0))
-            for out, num, den in pairs:
-                val = out[lo:hi]
+        power = tmp = floor = zero = None
+        for lo, hi, re, im in self._expansions(s, dG, dC, plan):
+            if power is None or power.shape != re.shape:       # buffers, reused per block
+                power, tmp = np.empty(re.shape), np.empty(re.shape)
+                floor, zero = np.empty(re.shape[::2]), np.empty(re.shape[::2], dtype=bool)
+            np.multiply(re, re, out=power)         # |polynomial|², (rows, n_poly, n_f)
+            np.multiply(im, im, out=tmp)
+            power += tmp
+            det = power[:, row[0]]
+            np.multiply(tiny[lo:hi, None], det, out=floor)
+            with np.errstate(invalid="ignore"):
+                singular = not (det.min() > 0 and det.max() < np.inf)
+            for name in names:
+                num, den, test = _CURVE_POLYS[name]
+                val = out[name][lo:hi]
+                pn, pd = power[:, row[num]], power[:, row[den]]
                 with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-                    np.divide(power[:, num], power[:, den], out=val)
+                    np.divide(pn, pd, out=val)
                     np.log10(val, out=val)
                 val *= 10.0
-                zero = power[:, den] <= floor
+                np.less_equal(pd if test == "den" else pn, floor, out=zero)
                 if zero.any():
-                    val[zero] = np.inf
-                if bad.any():
-                    val[bad] = np.nan
-        return cse, cbal
+                    val[zero] = np.inf if test == "den" else -np.inf
+                if singular:
+                    val[~(np.isfinite(det) & (det > 0))] = np.nan
+        return out
+
+    def cmrr_on_grid(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray,
+                     ref: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+        """Single-ended and balanced CMRR [dB] of every sample at every ``s`` [rad/s]
+        (:meth:`db_on_grid`); the balanced one is None without a balanced output."""
+        names = ("cmrr_se_db", "cmrr_db") if self.balanced else ("cmrr_se_db",)
+        out = self.db_on_grid(s, dG, dC, ref, names)
+        return out["cmrr_se_db"], out.get("cmrr_db")
 
     # ------------------------------------------------------------ one s per sample
     def paired(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray) -> BatchGains:
@@ -432,34 +578,85 @@ class _GridPlan:
     """Per-frequency weights of the grid expansion (see the module notes).
 
     ``weights`` is real, ``(n_mono, 2·n_poly·n_f)``: columns are (real part,
-    imaginary part) × polynomial × frequency; ``rows`` the fixed block height.
+    imaginary part) × polynomial × frequency; ``rows`` the fixed block height;
+    ``polys`` the indices (into :data:`_POLYS`) of the polynomials it holds.
     """
 
     weights: np.ndarray
     rows: int
+    polys: tuple = tuple(range(len(_POLYS)))
+
+    @property
+    def n_f(self) -> int:
+        return self.weights.shape[1] // (2 * len(self.polys))
 
     @classmethod
-    def build(cls, ev: BatchEvaluator, s: np.ndarray) -> "_GridPlan":
+    def build(cls, ev: BatchEvaluator, s: np.ndarray, polys=None, rows=None) -> "_GridPlan":
+        polys = tuple(range(len(_POLYS))) if polys is None else tuple(polys)
+        n_f = s.size
+        w = cls._weights(ev, s, ev.solver.response(s), polys)   # (n_mono, n_poly, n_f)
+        weights = np.ascontiguousarray(
+            np.stack([w.real, w.imag], axis=1).reshape(len(ev.monomials), -1))
+        if rows is None:
+            rows = int(min(256, max(8, GEMM_ELEMENTS // max(n_f, 1))))
+        return cls(weights, int(rows), polys)
+
+    @classmethod
+    def build_lattices(cls, ev: BatchEvaluator, s: np.ndarray, polys, rows) -> list:
+        """One plan per row of ``s`` ``(n_plans, n_f)``, all computed together.
+
+        The nominal responses come from one batched direct solve of every
+        frequency (``FrequencySolver.response_direct``: one LU per frequency, as
+        :meth:`build` gets for a few frequencies) and every minor from one
+        determinant call per size: each value is computed from its own frequency
+        alone, so a plan is the same bits whichever plans are built with it.
+        """
+        n_plans, n_f = s.shape
+        flat = s.ravel()
+        try:
+            H = ev.solver.response_direct(flat)
+        except np.linalg.LinAlgError:               # a singular point: plan by plan
+            H = np.concatenate([ev.solver.response(row) for row in s])
+        w = cls._weights(ev, flat, H, tuple(polys))
+        n_mono = len(ev.monomials)
+        out = []
+        for k in range(n_plans):
+            wk = w[:, :, k * n_f:(k + 1) * n_f]
+            out.append(cls(np.ascontiguousarray(np.stack([wk.real, wk.imag], axis=1)
+                                                .reshape(n_mono, -1)), int(rows), tuple(polys)))
+        return out
+
+    @staticmethod
+    def _weights(ev: BatchEvaluator, s: np.ndarray, H: np.ndarray, polys: tuple) -> np.ndarray:
+        """Monomial weights ``(n_mono, n_poly, n_f)`` from the nominal responses ``H``."""
         r, n_f = ev.rank, s.size
-        H = ev.solver.response(s)                       # (n_f, 2 + r, 2 + r)
-        minors = {}
-        for subset in itertools.product((False, True), repeat=r):
-            idx = [2 + k for k in range(r) if subset[k]]
-            c = np.empty((len(_POLYS), n_f), dtype=complex)
-            if not idx:
-                c[0] = 1.0
-                c[1:] = H[:, :2, :2].reshape(n_f, 4).T
-            else:
-                c[0] = np.linalg.det(H[:, idx][:, :, idx])
-                for i, (a, b) in enumerate(((0, 0), (0, 1), (1, 0), (1, 1))):
-                    c[1 + i] = np.linalg.det(H[:, idx + [a]][:, :, idx + [b]])
-            minors[subset] = c
-        sp = s / ev.solver.s0
-        w = np.empty((len(ev.monomials), len(_POLYS), n_f), dtype=complex)
+        pairs = {1: (0, 0), 2: (0, 1), 3: (1, 0), 4: (1, 1)}   # poly → (output, drive)
+        subsets = list(itertools.product((False, True), repeat=r))
+        minors = {sub: np.empty((len(polys), n_f), dtype=complex) for sub in subsets}
+        # one determinant call per matrix size: every (subset, polynomial) minor of that size
+        by_size: dict[int, list] = {}
+        for sub in subsets:
+            idx = [2 + k for k in range(r) if sub[k]]
+            for i, p in enumerate(polys):
+                if p == 0:
+                    rows_, cols_ = idx, idx
+                else:
+                    a, b = pairs[p]
+                    rows_, cols_ = idx + [a], idx + [b]
+                if not rows_:
+                    minors[sub][i] = 1.0
+                else:
+                    by_size.setdefault(len(rows_), []).append((sub, i, rows_, cols_))
+        for size, items in by_size.items():
+            R = np.array([it[2] for it in items])              # (n_items, size)
+            C = np.array([it[3] for it in items])
+            M = H[:, R[:, :, None], C[:, None, :]]              # (n_f, n_items, size, size)
+            dets = M[..., 0, 0] if size == 1 else np.linalg.det(M)
+            for k, (sub, i, _, _) in enumerate(items):
+                minors[sub][i] = dets[:, k]
+        sp = s / ev.s0
+        w = np.empty((len(ev.monomials), len(polys), n_f), dtype=complex)
         for m, mono in enumerate(ev.monomials):
             subset = tuple(o > 0 for o in mono)
             w[m] = minors[subset] * sp ** sum(o == 2 for o in mono)
-        weights = np.ascontiguousarray(
-            np.stack([w.real, w.imag], axis=1).reshape(len(ev.monomials), -1))
-        rows = int(min(256, max(8, GEMM_ELEMENTS // max(n_f, 1))))
-        return cls(weights, rows)
+        return w

@@ -12,7 +12,9 @@ executor. Two executors share one method, :meth:`map_chunks`:
   cluster (a scheduler address such as ``"tcp://10.0.0.5:8786"`` or a
   ``Client`` made by the caller). The cluster's own scheduler places them,
   retries the tasks of a worker that dies, and returns the results; freqpair
-  adds nothing of its own to that machinery.
+  adds nothing of its own to that machinery. Tasks are submitted as earlier
+  ones are handed back, a bounded window at a time, so the client holds only
+  a few results whatever the number of chunks.
 
 ``dask[distributed]`` is an optional extra (``pip install "freqpair[cluster]"``)
 and is imported only when a :class:`DaskExecutor` is made.
@@ -25,7 +27,7 @@ from typing import Any, Callable, Iterable, Iterator, Sequence
 from freqpair.design.errors import FreqpairError
 
 __all__ = ["Executor", "LocalExecutor", "DaskExecutor", "ClusterError", "get_executor",
-           "INSTALL_HINT", "WORKER_ENV"]
+           "INSTALL_HINT", "WORKER_ENV", "chunk_ranges", "iter_chunks", "run_chunks"]
 
 INSTALL_HINT = 'dask[distributed] is not installed: pip install "freqpair[cluster]"'
 
@@ -50,24 +52,30 @@ class Executor:
         """Items per chunk for ``n_items`` items, at most ``preferred`` (a memory bound)."""
         return max(1, int(preferred))
 
-    def map_chunks(self, func: Callable, chunk_args: Sequence[tuple],
-                   progress: Callable[[int], None] | None = None) -> Iterator[Any]:
+    def map_chunks(self, func: Callable, chunk_args: Iterable[tuple],
+                   progress: Callable[[int], None] | None = None,
+                   ordered: bool = True) -> Iterator[Any]:
         """Run ``func(*args)`` for every ``args`` in ``chunk_args``.
 
         Parameters
         ----------
         func : callable
             A pure, importable (module-level) function.
-        chunk_args : sequence of tuple
-            Positional arguments of each chunk.
+        chunk_args : iterable of tuple
+            Positional arguments of each chunk; read lazily, as chunks are
+            started, so a generator keeps a long run's arguments out of memory.
         progress : callable, optional
             Called with the chunk's position in ``chunk_args`` as each chunk
             finishes (completion order).
+        ordered : bool
+            Results in the order of ``chunk_args`` (default), or as they finish
+            (for reductions whose merge does not depend on the order).
 
         Returns
         -------
         iterator
-            The results, in the order of ``chunk_args``.
+            The results. Only a bounded number of chunks is pending or held at
+            any time (see :class:`DaskExecutor`).
         """
         raise NotImplementedError
 
@@ -84,7 +92,7 @@ class Executor:
 class LocalExecutor(Executor):
     """Run chunks one after another in this process (the default)."""
 
-    def map_chunks(self, func, chunk_args, progress=None):
+    def map_chunks(self, func, chunk_args, progress=None, ordered=True):
         for i, args in enumerate(chunk_args):
             out = func(*args)
             if progress is not None:
@@ -123,7 +131,9 @@ class DaskExecutor(Executor):
     Notes
     -----
     Workers must be able to import ``freqpair`` (the same version as the
-    client): the tasks name its functions, they do not ship its code.
+    client): the tasks name its functions, they do not ship its code. At most
+    :attr:`window` chunks are submitted and not yet handed back (an ordered
+    run's results waiting for an earlier chunk count against it).
     """
 
     def __init__(self, client_or_address, chunks_per_slot: int = 4, min_chunk: int = 256,
@@ -165,26 +175,57 @@ class DaskExecutor(Executor):
         want = math.ceil(n_items / (self.slots * self.chunks_per_slot))
         return max(1, min(int(preferred), max(self.min_chunk, want)))
 
-    def map_chunks(self, func, chunk_args, progress=None):
+    @property
+    def window(self) -> int:
+        """Most chunks submitted and not yet handed back (running, queued or, in an
+        ordered run, waiting for an earlier chunk): two per wanted chunk per
+        worker thread, so the workers stay busy while the client holds few results."""
+        return max(4, 2 * self.slots * self.chunks_per_slot)
+
+    def map_chunks(self, func, chunk_args, progress=None, ordered=True):
         distributed = _import_distributed()
-        futures = [self.client.submit(func, *args, pure=False) for args in chunk_args]
-        index = {f.key: i for i, f in enumerate(futures)}
-        done: dict[int, Any] = {}
+        todo = enumerate(chunk_args)
+        window = self.window
+        live: dict[int, Any] = {}            # position → future, submitted and not yet read
+        index: dict[str, int] = {}
+        done: dict[int, Any] = {}            # finished, waiting for an earlier chunk (ordered)
+        finished = distributed.as_completed([], loop=self.client.loop)
         nxt = 0
+
+        def submit() -> bool:
+            try:
+                i, args = next(todo)
+            except StopIteration:
+                return False
+            fut = self.client.submit(func, *args, pure=False)
+            live[i] = fut
+            index[fut.key] = i
+            finished.add(fut)
+            return True
+
         try:
-            for fut in distributed.as_completed(futures, loop=self.client.loop):
-                i = index[fut.key]
-                done[i] = fut.result()       # re-raises a chunk's own error (one line)
-                futures[i] = None            # let the cluster free the result
+            while len(live) < window and submit():
+                pass
+            for fut in finished:
+                i = index.pop(fut.key)
+                res = fut.result()               # re-raises a chunk's own error (one line)
+                del live[i]                      # let the cluster free the result
+                del fut
                 if progress is not None:
                     progress(i)
-                while nxt in done:
-                    yield done.pop(nxt)
-                    nxt += 1
+                if ordered:
+                    done[i] = res
+                    while nxt in done:
+                        yield done.pop(nxt)
+                        nxt += 1
+                else:
+                    yield res
+                del res
+                while len(live) + len(done) < window and submit():
+                    pass
         finally:
-            live = [f for f in futures if f is not None]
             if live:
-                self.client.cancel(live)
+                self.client.cancel(list(live.values()))
 
     def close(self):
         if self._owns:
@@ -208,8 +249,15 @@ def chunk_ranges(n_items: int, size: int) -> list[tuple[int, int]]:
     return [(a, min(n_items, a + size)) for a in range(0, n_items, size)]
 
 
-def run_chunks(executor: Executor, func: Callable, chunk_args: Iterable[tuple],
-               sizes: Sequence[int], progress: Callable[[int], None] | None = None):
+def iter_chunks(executor: Executor, func: Callable, chunk_args: Iterable[tuple],
+                sizes: Sequence[int], progress: Callable[[int], None] | None = None,
+                ordered: bool = True) -> Iterator[Any]:
     """:meth:`Executor.map_chunks` with progress counted in items (``sizes[i]`` per chunk)."""
     cb = None if progress is None else (lambda i: progress(sizes[i]))
-    return list(executor.map_chunks(func, list(chunk_args), cb))
+    return executor.map_chunks(func, chunk_args, cb, ordered=ordered)
+
+
+def run_chunks(executor: Executor, func: Callable, chunk_args: Iterable[tuple],
+               sizes: Sequence[int], progress: Callable[[int], None] | None = None) -> list:
+    """Every result of :func:`iter_chunks`, in chunk order, as a list."""
+    return list(iter_chunks(executor, func, chunk_args, sizes, progress))

@@ -6,7 +6,9 @@ Each point is the design with the swept values replaced
 bias saturates) keeps its one-line error in the table instead of stopping the
 sweep. The engine is a pure function returning a frozen :class:`SweepResult`;
 progress is reported through an optional callback (the command line draws a
-bar with it).
+bar with it). For grids too large to hold, :func:`iter_sweep_rows` hands the
+table's rows on in grid order as chunks finish (the command line writes its
+CSV that way).
 """
 from __future__ import annotations
 
@@ -18,7 +20,8 @@ import numpy as np
 
 from freqpair.analysis.result import analyze
 from freqpair.design.keys import get_value
-from freqpair.studies.design_grid import GridTable, design_at, grid_rows, run_grid
+from freqpair.studies.design_grid import GridTable, design_at, grid_row, grid_rows, \
+    iter_grid, run_grid
 from freqpair.design.errors import FreqpairError
 from freqpair.analysis.crossings import db
 from freqpair.studies.targets import (
@@ -30,8 +33,8 @@ from freqpair.studies.targets import (
     solve_target,
 )
 
-__all__ = ["SweepAxis", "SweepResult", "SweepError", "sweep", "solve_target", "TargetResult",
-           "METRICS", "DEFAULT_METRICS"]
+__all__ = ["SweepAxis", "SweepResult", "SweepError", "sweep", "iter_sweep_rows", "solve_target",
+           "TargetResult", "METRICS", "DEFAULT_METRICS"]
 
 DEFAULT_METRICS = ("adm_db", "f3db_hz", "ugf_hz", "cmrr_se_db", "cmrr_db", "cmrr_corner_hz")
 
@@ -160,18 +163,7 @@ def sweep(design, axes, metrics=DEFAULT_METRICS, curves: bool = False, f_hz=None
     -------
     SweepResult
     """
-    axes = tuple(axes)
-    if not 1 <= len(axes) <= 2:
-        raise SweepError(f"axes: {len(axes)} given; a sweep has one or two")
-    if len({a.key for a in axes}) != len(axes):
-        raise SweepError(f"axes: {axes[0].key} is swept twice")
-    for m in metrics:
-        if m not in METRICS:
-            raise SweepError(f"metric = {m!r}: unknown (choose from {', '.join(METRICS)})")
-        if m in LOOP_METRICS and design.feedback is None:
-            raise SweepError(f"metric = {m!r}: needs a [feedback] table in the design")
-    for a in axes:
-        get_value(design, a.key)            # names a missing key before any work
+    axes = _checked(design, axes, metrics)
     shape = tuple(len(a.values) for a in axes)
     table = {m: np.full(shape, np.nan) for m in metrics}
     errors: dict = {}
@@ -200,6 +192,49 @@ def sweep(design, axes, metrics=DEFAULT_METRICS, curves: bool = False, f_hz=None
     if store is not None and np.all(np.isnan(store["cmrr_db"])):
         del store["cmrr_db"]
     return SweepResult(axes, tuple(metrics), table, errors, at_hz, grid, store)
+
+
+def _checked(design, axes, metrics) -> tuple:
+    """The axes as a tuple, after checking the request (one-line errors, before any work)."""
+    axes = tuple(axes)
+    if not 1 <= len(axes) <= 2:
+        raise SweepError(f"axes: {len(axes)} given; a sweep has one or two")
+    if len({a.key for a in axes}) != len(axes):
+        raise SweepError(f"axes: {axes[0].key} is swept twice")
+    for m in metrics:
+        if m not in METRICS:
+            raise SweepError(f"metric = {m!r}: unknown (choose from {', '.join(METRICS)})")
+        if m in LOOP_METRICS and design.feedback is None:
+            raise SweepError(f"metric = {m!r}: needs a [feedback] table in the design")
+    for a in axes:
+        get_value(design, a.key)            # names a missing key before any work
+    return axes
+
+
+def iter_sweep_rows(design, axes, metrics=DEFAULT_METRICS, at_hz: float | None = None,
+                    progress: Callable[[int], None] | None = None, executor=None,
+                    chunk: int = 16):
+    """The rows of :func:`sweep`'s table, in grid order, as the chunks finish.
+
+    Each row is the dict :meth:`SweepResult.to_rows` gives for that point (swept
+    keys, metrics, error), so :meth:`SweepResult.csv_stream` of these rows is
+    byte for byte :meth:`SweepResult.to_csv`. Only the chunks in flight are
+    held (a few per worker): a grid of any size streams in bounded memory. The
+    request is checked here, before the first row (same errors as :func:`sweep`).
+
+    Returns
+    -------
+    iterator of dict
+    """
+    axes = _checked(design, axes, metrics)
+    metrics = tuple(metrics)
+
+    def rows():
+        for idx, vals, _, err in iter_grid(sweep_points, (design, axes, metrics, at_hz, None),
+                                           axes, chunk, executor, progress):
+            yield grid_row(axes, idx, zip(metrics, vals if err is None else
+                                          (None,) * len(metrics)), err)
+    return rows()
 
 
 def sweep_points(design, axes, metrics, at_hz, grid, points) -> list:

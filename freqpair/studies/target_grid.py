@@ -15,11 +15,12 @@ from typing import Callable
 import numpy as np
 
 from freqpair.design.keys import get_value
-from freqpair.studies.design_grid import GridTable, design_at, grid_rows, run_grid
+from freqpair.studies.design_grid import GridTable, design_at, grid_row, grid_rows, \
+    iter_grid, run_grid
 from freqpair.design.errors import FreqpairError
 from freqpair.studies.targets import TargetError, solve_target
 
-__all__ = ["TargetGridResult", "solve_target_grid", "target_points"]
+__all__ = ["TargetGridResult", "solve_target_grid", "iter_target_rows", "target_points"]
 
 
 @dataclass(frozen=True)
@@ -86,6 +87,57 @@ def target_points(design, axes, key, metric, bound, kind, bounds, at_hz, want, f
     return out
 
 
+def _checked(design, axes, key, metric, kind, bounds, want) -> tuple:
+    """The axes as a tuple, after checking the request once (one error, not one per point)."""
+    axes = tuple(axes)
+    if not 1 <= len(axes) <= 2:
+        raise TargetError(f"axes: {len(axes)} given; a grid has one or two")
+    names = [a.key for a in axes]
+    if len(set(names)) != len(names) or key in names:
+        raise TargetError(f"axes: {', '.join(names)}: each grid key once, and not the "
+                          f"solved key {key!r}")
+    get_value(design, key)
+    for a in axes:
+        get_value(design, a.key)
+    # check the request itself once, here, so a bad metric is one error, not one per point
+    if kind not in ("min", "max") or want not in (None, "largest", "smallest"):
+        raise TargetError(f"kind = {kind!r}, want = {want!r}: kind 'min'/'max', "
+                          "want 'largest'/'smallest'")
+    from freqpair.studies.targets import METRICS
+    if metric not in METRICS:
+        raise TargetError(f"metric = {metric!r}: unknown (choose from {', '.join(METRICS)})")
+    a, b = bounds
+    if a is None or b is None or not (math.isfinite(a) and math.isfinite(b) and b > a):
+        raise TargetError(f"bounds = {bounds!r}: need a finite range [a, b] with b > a")
+    return axes
+
+
+def iter_target_rows(design, axes, key: str, metric: str, bound: float, kind: str = "min",
+                     bounds=(None, None), at_hz: float | None = None,
+                     want: str | None = None,
+                     progress: Callable[[int], None] | None = None,
+                     executor=None, chunk: int = 4, face: str = "library"):
+    """The rows of :func:`solve_target_grid`'s table, in grid order, as chunks finish.
+
+    Each row is the dict :meth:`TargetGridResult.to_rows` gives for that point,
+    so :meth:`TargetGridResult.csv_stream` of them is byte for byte its
+    :meth:`~TargetGridResult.to_csv`; only the chunks in flight are held. The
+    request is checked before the first row.
+
+    Returns
+    -------
+    iterator of dict
+    """
+    axes = _checked(design, axes, key, metric, kind, bounds, want)
+
+    def rows():
+        for idx, v, m, err in iter_grid(target_points, (design, axes, key, metric, bound, kind,
+                                                        bounds, at_hz, want, face),
+                                        axes, chunk, executor, progress):
+            yield grid_row(axes, idx, ((key, v), (metric, m)), err)
+    return rows()
+
+
 def solve_target_grid(design, axes, key: str, metric: str, bound: float, kind: str = "min",
                       bounds=(None, None), at_hz: float | None = None,
                       want: str | None = None,
@@ -114,26 +166,7 @@ def solve_target_grid(design, axes, key: str, metric: str, bound: float, kind: s
     -------
     TargetGridResult
     """
-    axes = tuple(axes)
-    if not 1 <= len(axes) <= 2:
-        raise TargetError(f"axes: {len(axes)} given; a grid has one or two")
-    names = [a.key for a in axes]
-    if len(set(names)) != len(names) or key in names:
-        raise TargetError(f"axes: {', '.join(names)}: each grid key once, and not the "
-                          f"solved key {key!r}")
-    get_value(design, key)
-    for a in axes:
-        get_value(design, a.key)
-    # check the request itself once, here, so a bad metric is one error, not one per point
-    if kind not in ("min", "max") or want not in (None, "largest", "smallest"):
-        raise TargetError(f"kind = {kind!r}, want = {want!r}: kind 'min'/'max', "
-                          "want 'largest'/'smallest'")
-    from freqpair.studies.targets import METRICS
-    if metric not in METRICS:
-        raise TargetError(f"metric = {metric!r}: unknown (choose from {', '.join(METRICS)})")
-    a, b = bounds
-    if a is None or b is None or not (math.isfinite(a) and math.isfinite(b) and b > a):
-        raise TargetError(f"bounds = {bounds!r}: need a finite range [a, b] with b > a")
+    axes = _checked(design, axes, key, metric, kind, bounds, want)
     entries = run_grid(target_points, (design, axes, key, metric, bound, kind, bounds, at_hz,
                                        want, face), axes, chunk, executor, progress)
     shape = tuple(len(ax.values) for ax in axes)
