@@ -514,3 +514,101 @@ def test_a_real_subprocess_refuses_a_bad_file_in_one_line(tmp_path, edit, names)
                           capture_output=True, text=True, timeout=60)
     assert proc.returncode != 0 and proc.stdout == ""
     assert proc.stderr.count("\n") == 1 and names in proc.stderr, proc.stderr
+
+
+# ------------------------------------------------------------------ the second edition
+def _drop(dev, current):
+    """|V_BE| or |V_GS| of ``dev`` (a generated device dict) at ``current``."""
+    if dev["type"] in ("npn", "pnp"):
+        return dev.get("vbe", 0.7)
+    ratio = dev["width"] / dev["length"]
+    return dev["threshold"] + math.sqrt(2 * current / (dev["mobility_cox"] * ratio))
+
+
+@st.composite
+def designs7(draw):
+    """A design of :func:`designs` with the keys of DESIGN.md §7 drawn too: pair
+    degeneration, MOS body effect and C_sb, a cascoded pair biased mid-way, added
+    elements between the stage's nodes, a feedback divider."""
+    d = draw(designs())
+    kind = d["pair"]["type"]
+    pol = 1 if kind in ("npn", "nmos") else -1
+    i_dev = d["bias"]["tail_current"] / 2
+    if draw(st.booleans()):
+        d["pair"]["degeneration"] = draw(st.floats(0.001, 0.3)) / i_dev
+    mos = kind in ("nmos", "pmos")
+    if mos and draw(st.booleans()):
+        d["pair"]["body_effect"] = draw(st.floats(0.0, 1.0))
+        d["pair"]["csb"] = draw(absentable(1e-16, 1e-12))
+    cascoded = draw(st.booleans())
+    if cascoded:
+        casc = draw(device(kind, i_dev, d["bias"]["temperature"]))
+        rail = d["supply"]["positive"] if pol > 0 else d["supply"]["negative"]
+        if d["load"]["type"] == "resistor":
+            v_out = rail - pol * i_dev * d["load"]["resistance"]
+        else:
+            v_out = rail - pol * _drop(d["load"]["device"], i_dev)
+        v_e = d["bias"]["input_common_mode"] - pol * _drop(d["pair"], i_dev)
+        v_c = (v_e + v_out) / 2
+        casc["bias"] = v_c + pol * _drop(casc, i_dev)
+        d["pair"]["cascode"] = casc
+    nodes = ["t", "o1", "o2", "ground", "vpos", "vneg", "b1", "in2"]
+    if cascoded:
+        nodes += ["c1", "c2"]
+    if d["pair"].get("degeneration", 0) > 0:
+        nodes += ["e1"]
+    elements = []
+    for _ in range(draw(st.integers(0, 3))):
+        a, b = draw(st.lists(st.sampled_from(nodes), min_size=2, max_size=2, unique=True))
+        kind_el = draw(st.sampled_from(["capacitor", "resistor"]))
+        value = draw(absentable(1e-15, 1e-11)) if kind_el == "capacitor" \
+            else draw(log_uniform(1e3, 1e9))
+        elements.append({"kind": kind_el, "nodes": [a, b], "value": value})
+    if elements:
+        d["element"] = elements
+    if "feedback" in d and draw(st.booleans()):
+        d["feedback"] = {"type": "divider", "series_resistance": draw(log_uniform(1e2, 1e6)),
+                         "shunt_resistance": draw(log_uniform(1e2, 1e6)),
+                         "series_capacitance": draw(absentable(1e-15, 1e-10)),
+                         "shunt_capacitance": draw(absentable(1e-15, 1e-10))}
+    return d
+
+
+@examples(60)
+@given(d=designs7())
+def test_second_edition_designs_give_finite_json_or_documented_nulls(d):
+    # oracle: DESIGN.md §4 and §7 — null where infinite/undefined, never NaN; the keys of
+    # §7e–§7h in every answer; a refusal is one line
+    try:
+        res = analyze(parse_design(d))
+        out = res.to_json()
+    except FreqpairError as exc:
+        assert "\n" not in str(exc) and str(exc)
+        return
+    json.dumps(out, allow_nan=False)
+    _finite_or_null(out)
+    for key in ("psrr_pos_db", "psrr_neg_db", "zin_dm_ohm", "zin_cm_ohm", "beta_dc", "noise"):
+        assert key in out
+    shares = [c["share"] for c in out["noise"]["spot"][0]["contributors"]]
+    assert not shares or abs(sum(shares) - 1.0) < 1e-9
+    assert out["noise"]["input_rms_v"] is None or out["noise"]["input_rms_v"] >= 0
+
+
+@examples(40)
+@given(d=designs7(), node=st.sampled_from(["t", "o2", "vneg", "b2"]))
+def test_an_absent_capacitor_or_an_open_resistor_changes_nothing(d, node):
+    # oracle: DESIGN.md §7d — a 0 F capacitor is absent; 1e30 Ω beside ≥ 1e9 Ω paths is
+    # open to 1e-12 relative (circuit theory)
+    try:
+        base = analyze(parse_design(d)).to_json()
+    except FreqpairError:
+        assume(False)
+    for added in ({"kind": "capacitor", "nodes": [node, "ground"], "value": 0.0},
+                  {"kind": "resistor", "nodes": [node, "ground"], "value": 1e30}):
+        extra = copy.deepcopy(d)
+        extra["element"] = list(d.get("element", [])) + [added]
+        same = analyze(parse_design(extra)).to_json()
+        for key in ("adm_db", "f3db_hz", "cmrr_se_db", "psrr_pos_db", "zin_dm_ohm"):
+            assert (base[key] is None) == (same[key] is None), (key, added["kind"])
+            if base[key] is not None:
+                assert same[key] == pytest.approx(base[key], rel=1e-9), (key, added["kind"])

@@ -110,7 +110,8 @@ def hand_table(analysis) -> list[HandRow]:
 
     # --- poles of the first stage
     p_hz = _kept_poles_hz(response_zpk(analysis, first))
-    f_out = 1.0 / (TWO_PI * r_out * c_out_miller) if c_out_miller > 0 else None
+    f_out = (1.0 / (TWO_PI * r_out * c_out_miller)
+             if c_out_miller > 0 and math.isfinite(r_out) else None)
     f_in = None
     miller_note = None
     if r_in > 0 and (cpi + cmu) > 0:
