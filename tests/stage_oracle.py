@@ -481,3 +481,22 @@ def lowest_crossing(grid_hz, values_on_grid, func, level):
     if g(lo) * g(hi) > 0:                            # bracket from the grid, check it
         raise AssertionError("oracle does not bracket the grid's crossing")
     return math.exp(brentq(g, lo, hi, xtol=1e-13, rtol=1e-14))
+
+
+# ------------------------------------------------------------------ tolerances
+def rail_rtol(a_se, a_rail):
+    # A rail gain far below A_se is a small difference of node voltages of order
+    # |A_se|: float64 rounding shows in it magnified by |A_se/A_rail| (as A_cm-dm
+    # against the CMRR, DEVELOPERS.md). 1e-9 holds below a ratio of ≈ 100 dB;
+    # measured here ≤ 1.2e-9 at 123 dB.
+    return max(1e-9, 1e-14 * abs(a_se) / abs(a_rail))
+
+
+def assert_admittance(z_fp, z_ref, gm, msg):
+    # Z_in compared as the admittance 1/Z: a MOS gate's input current at low
+    # frequency is ~1e-12 of the device currents, so its rounding floor is an
+    # absolute one, ≈ 1e-16·g_m (measured ≤ 3.3e-19 S); 1e-14·g_m is allowed.
+    y_fp = 0 if math.isinf(abs(z_fp)) else 1 / z_fp
+    y_ref = 0 if math.isinf(abs(z_ref)) else 1 / z_ref
+    assert abs(y_fp - y_ref) <= 1e-9 * abs(y_ref) + 1e-14 * gm, \
+        f"{msg}: Z_in {z_fp} vs {z_ref}"

@@ -45,24 +45,6 @@ def _a_se(r):
     return complex((r.a_total if r.a_total is not None else r.adm_se)[0])
 
 
-def _rail_rtol(a_se, a_rail):
-    # A rail gain far below A_se is a small difference of node voltages of order
-    # |A_se|: float64 rounding shows in it magnified by |A_se/A_rail| (as A_cm-dm
-    # against the CMRR, DEVELOPERS.md). 1e-9 holds below a ratio of ≈ 100 dB;
-    # measured here ≤ 1.2e-9 at 123 dB.
-    return max(1e-9, 1e-14 * abs(a_se) / abs(a_rail))
-
-
-def _assert_admittance(z_fp, z_ref, gm, msg):
-    # Z_in compared as the admittance 1/Z: a MOS gate's input current at low
-    # frequency is ~1e-12 of the device currents, so its rounding floor is an
-    # absolute one, ≈ 1e-16·g_m (measured ≤ 3.3e-19 S); 1e-14·g_m is allowed.
-    y_fp = 0 if math.isinf(abs(z_fp)) else 1 / z_fp
-    y_ref = 0 if math.isinf(abs(z_ref)) else 1 / z_ref
-    assert abs(y_fp - y_ref) <= 1e-9 * abs(y_ref) + 1e-14 * gm, \
-        f"{msg}: Z_in {z_fp} vs {z_ref}"
-
-
 @pytest.mark.parametrize("name", list(SUPPLY_DESIGNS))
 def test_rail_gains_psrr_and_input_impedance_match_the_nodal_oracle(name):
     # oracle: sympy nodal analysis written from DESIGN.md §7f/§7g (tests/stage_oracle.py)
@@ -78,14 +60,14 @@ def test_rail_gains_psrr_and_input_impedance_match_the_nodal_oracle(name):
         assert a_se == pytest.approx(ref["a_se"], rel=1e-9), msg
         for key in ("a_vpos", "a_vneg"):
             got = complex(getattr(r, key)[0])
-            assert got == pytest.approx(ref[key], rel=_rail_rtol(ref["a_se"], ref[key])), \
+            assert got == pytest.approx(ref[key], rel=so.rail_rtol(ref["a_se"], ref[key])), \
                 f"{msg}: {key}"
             # PSRR = |A_se/A_rail|
             psrr_ref = abs(ref["a_se"] / ref[key])
             assert abs(a_se / got) == pytest.approx(
-                psrr_ref, rel=2 * _rail_rtol(ref["a_se"], ref[key])), f"{msg}: PSRR {key}"
-        _assert_admittance(complex(r.zin_dm[0]), ref["zin_dm"], gm, msg + " dm")
-        _assert_admittance(complex(r.zin_cm[0]), ref["zin_cm"], gm, msg + " cm")
+                psrr_ref, rel=2 * so.rail_rtol(ref["a_se"], ref[key])), f"{msg}: PSRR {key}"
+        so.assert_admittance(complex(r.zin_dm[0]), ref["zin_dm"], gm, msg + " dm")
+        so.assert_admittance(complex(r.zin_cm[0]), ref["zin_cm"], gm, msg + " cm")
 
 
 def _oracle_db(o, key, f_hz):
