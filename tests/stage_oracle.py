@@ -17,7 +17,9 @@ Conventions (as in the design notes):
   emitter; §7d; the second stage's current drawn from ``out`` into its rail);
 - ``ground``, ``in1``, ``in2``, ``vpos`` and ``vneg`` are driven (ideal sources),
   every other node is an unknown;
-- a noise source is a current between two nodes with a one-sided density.
+- a noise source is a current between two nodes with a one-sided density,
+  named as freqpair lists contributors (RL1, Rs2, Q1.rb, Q1 collector shot,
+  M3 channel, tail.q1 base shot, RE1, tail.Rdeg, Rz, element.N or the element's name).
 """
 from __future__ import annotations
 
@@ -208,7 +210,7 @@ def build(design) -> Oracle:
         emit = f"e{k}" if p.degeneration > 0 else "t"
         coll = f"c{k}" if casc is not None else f"o{k}"
         if p.degeneration > 0:
-            net.resistor(f"e{k}", "t", p.degeneration, f"R_E{k}", T)
+            net.resistor(f"e{k}", "t", p.degeneration, f"RE{k}", T)
         if bip:
             vcb = sgn * (v_c - vcm)
             v = bipolar_values(p, ic, vcb, v_t)
@@ -256,7 +258,7 @@ def build(design) -> Oracle:
             r_deg = tail.degeneration if tail.type == "degenerated" else 0.0
             emit = "te" if r_deg > 0 else tail_rail
             if r_deg > 0:
-                net.resistor("te", tail_rail, r_deg, "R_deg", T)
+                net.resistor("te", tail_rail, r_deg, "tail.Rdeg", T)
             if tb:
                 vq = bipolar_values(q, i_tail, v_rail_dist - i_tail * r_deg - q.vbe, v_t)
             else:
@@ -284,7 +286,7 @@ def build(design) -> Oracle:
         net.y("out", "ground", c=ss.load_capacitance)
         if ss.miller_capacitance > 0:
             if ss.nulling_resistance > 0:
-                net.resistor("o2", "mz", ss.nulling_resistance, "R_z", T)
+                net.resistor("o2", "mz", ss.nulling_resistance, "Rz", T)
                 net.y("mz", "out", c=ss.miller_capacitance)
             else:
                 net.y("o2", "out", c=ss.miller_capacitance)
@@ -292,7 +294,7 @@ def build(design) -> Oracle:
     # ---- added elements (§7d)
     for i, el in enumerate(d.element):
         a, b = el.nodes
-        name = el.name or f"element {i}"
+        name = el.name or f"element.{i}"
         if el.kind == "resistor":
             net.resistor(a, b, el.value, name, T)
         elif el.kind == "capacitor":
