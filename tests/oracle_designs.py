@@ -518,7 +518,138 @@ resistance = "2 k"
 load = -0.02
 gm = 0.01
 """
+# pnp/pmos cascoded pairs: the cascode node at bias + V_EB (+ V_SG) (§3a, §7c)
+PNP_CASC = """
+name = "pnp cascoded, degenerated pair, npn mirror load, r_b on cascode"
+[supply]
+positive = 8
+negative = -8
+[bias]
+tail_current = "400 uA"
+input_common_mode = 1.0
+[pair]
+type = "pnp"
+beta = 80
+early_voltage = 40
+base_resistance = 120
+degeneration = "300"
+cje = "0.8 pF"
+transit_time = "0.5 ns"
+cjc0 = "0.6 pF"
+ccs = "0.5 pF"
+flicker_corner = "1 kHz"
+[pair.cascode]
+bias = -2.0
+beta = 60
+early_voltage = 30
+base_resistance = 250
+cje = "0.5 pF"
+ft = "300 MHz"
+cjc0 = "0.4 pF"
+ccs = "0.3 pF"
+flicker_corner = "300"
+[load]
+type = "mirror"
+capacitance = "0.7 pF"
+[load.device]
+type = "npn"
+beta = 150
+early_voltage = 80
+base_resistance = 80
+cje = "0.4 pF"
+transit_time = "0.3 ns"
+cjc0 = "0.3 pF"
+ccs = "0.4 pF"
+[tail]
+type = "cascode"
+extra_capacitance = "0.3 pF"
+[tail.device]
+type = "pnp"
+beta = 70
+early_voltage = 50
+base_resistance = 50
+cje = "0.5 pF"
+cjc0 = "0.4 pF"
+ccs = "0.6 pF"
+flicker_corner = "2 kHz"
+[source]
+resistance = "800"
+[mismatch]
+load = 0.02
+gm = -0.03
+"""
+PMOS_CASC = """
+name = "pmos cascoded degenerated pair, resistor load, second stage"
+[supply]
+positive = 3
+negative = -3
+[bias]
+tail_current = "300 uA"
+input_common_mode = 0.5
+[pair]
+type = "pmos"
+mobility_cox = "80 uA/V2"
+width = "50 um"
+length = "1 um"
+threshold = 0.6
+lambda = 0.05
+cox = "4.6 mF/m2"
+overlap_cap = "0.3 nF/m"
+cdb = "30 fF"
+body_effect = 0.4
+csb = "30 fF"
+degeneration = "500"
+flicker_corner = "20 kHz"
+noise_gamma = 1.0
+[pair.cascode]
+bias = -1.0
+mobility_cox = "80 uA/V2"
+width = "50 um"
+length = "0.5 um"
+threshold = 0.6
+lambda = 0.08
+cox = "4.6 mF/m2"
+overlap_cap = "0.3 nF/m"
+cdb = "20 fF"
+body_effect = 0.4
+csb = "20 fF"
+[load]
+type = "resistor"
+resistance = "5 k"
+capacitance = "0.3 pF"
+[tail]
+type = "degenerated"
+degeneration = "1 k"
+extra_capacitance = "0.2 pF"
+[tail.device]
+type = "pmos"
+mobility_cox = "80 uA/V2"
+width = "100 um"
+length = "2 um"
+threshold = 0.6
+lambda = 0.03
+cox = "4.6 mF/m2"
+overlap_cap = "0.3 nF/m"
+cdb = "40 fF"
+body_effect = 0.5
+csb = "40 fF"
+flicker_corner = "5 kHz"
+[second_stage]
+gm = "2 mS"
+output_resistance = "300 k"
+input_capacitance = "0.2 pF"
+load_capacitance = "3 pF"
+miller_capacitance = "1.5 pF"
+nulling_resistance = "2 k"
+[source]
+resistance = "300"
+[mismatch]
+load = -0.04
+gm = 0.02
+"""
+
 ALL = dict(NPN_RES=NPN_RES, PMOS_MIRROR_DEGEN_TAIL=PMOS_MIRROR_DEGEN_TAIL, NMOS_MIRROR_DEGEN_TAIL=NMOS_MIRROR_DEGEN_TAIL, NPN_TWO_STAGE=NPN_TWO_STAGE,
            NPN_RES_TWO_STAGE=NPN_RES_TWO_STAGE, NPN_DEGEN_CASCODE=NPN_DEGEN_CASCODE,
            NMOS_BODY_CASCODE=NMOS_BODY_CASCODE, PNP_RES=PNP_RES, PMOS_MIRROR_CASCODE_TAIL=PMOS_MIRROR_CASCODE_TAIL,
-           PNP_MIRROR_TWO_STAGE=PNP_MIRROR_TWO_STAGE)
+           PNP_MIRROR_TWO_STAGE=PNP_MIRROR_TWO_STAGE,
+           PNP_CASC=PNP_CASC, PMOS_CASC=PMOS_CASC)

@@ -150,6 +150,8 @@ FEATURE_DESIGNS = {
     "nmos_body_effect": NMOS_BODY,
     "npn_degeneration_cascode_elements": od.NPN_DEGEN_CASCODE,
     "nmos_body_degeneration_cascode_elements": od.NMOS_BODY_CASCODE,
+    "pnp_cascoded_degenerated_pair_mirror_load_cascode_tail": od.PNP_CASC,
+    "pmos_cascoded_degenerated_pair_second_stage": od.PMOS_CASC,
 }
 
 
@@ -471,6 +473,22 @@ def test_operating_point_of_a_degenerated_cascoded_nmos_pair_with_body_effect():
     v_c = 3.2 - (0.6 + math.sqrt(2 * i_d / (200e-6 * 80)))
     assert op["vds"] == pytest.approx(v_c - v_s, rel=1e-12)
     assert op["gmb"] == pytest.approx(gm * 0.5 / (2 * math.sqrt(0.8 + v_s + 1)), rel=1e-12)
+
+
+def test_operating_point_of_mirrored_cascoded_pairs():
+    # oracle: hand numbers, mirror image of §7c (§3a): the cascode node at bias + V_EB
+    # (bias + V_SG), magnitudes reported; V_SB of the pmos pair to vpos at its source
+    op = _op(od.PNP_CASC)
+    v_e, v_c = 1.0 + 0.7, -2.0 + 0.7
+    assert op["vce"] == pytest.approx(v_e - v_c, rel=1e-12)
+    assert op["vcb"] == pytest.approx(1.0 - v_c, rel=1e-12)
+    op = _op(od.PMOS_CASC)
+    i_d = 150e-6
+    v_s = 0.5 + 0.6 + math.sqrt(2 * i_d / (80e-6 * 50))
+    v_c = -1.0 + 0.6 + math.sqrt(2 * i_d / (80e-6 * 100))
+    gm = math.sqrt(2 * 80e-6 * 50 * i_d)
+    assert op["vds"] == pytest.approx(v_s - v_c, rel=1e-12)
+    assert op["gmb"] == pytest.approx(gm * 0.4 / (2 * math.sqrt(0.7 + 3.0 - v_s)), rel=1e-12)
 
 
 @pytest.mark.parametrize("r_e,ok", [(380.0, True), (420.0, False)])

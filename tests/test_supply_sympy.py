@@ -254,3 +254,40 @@ def test_section2_outputs_are_unchanged_by_the_rails(name, make, old):
     cmrr = old.get("cmrr_se_db")
     rtol = max(1e-9, 1e-15 * 10 ** (cmrr / 20)) if cmrr is not None else 1e-9
     _compare(old, new, rtol)
+
+
+# ---------------------------------------------------------------- Z_in with elements at the inputs
+AT_IN1 = '\n[[element]]\nkind = "resistor"\nnodes = ["in1", "ground"]\nvalue = "3 k"\n' \
+         '[[element]]\nkind = "resistor"\nnodes = ["in2", "ground"]\nvalue = "3 k"\n'
+AT_B = '\n[[element]]\nkind = "resistor"\nnodes = ["b1", "ground"]\nvalue = "3 k"\n' \
+       '[[element]]\nkind = "capacitor"\nnodes = ["in2", "b2"]\nvalue = "1 pF"\n' \
+       '[[element]]\nkind = "transconductance"\nnodes = ["in2", "ground"]\nvalue = 1e-3\n' \
+       'control = ["o1", "o2"]\n'
+MOS_GATES = od.PMOS_MIRROR_CASCODE_TAIL
+
+
+@pytest.mark.parametrize("rs", [0.0, 1e3])
+@pytest.mark.parametrize("extra", [AT_IN1, AT_B], ids=["at_in", "at_b"])
+def test_input_impedance_with_elements_at_the_input_nodes(rs, extra):
+    # oracle: the nodal model with i_k the current through R_s into b_k (§7g) — an element
+    # across the ideal source (in_k to ground) is not seen when R_s > 0, and is the
+    # whole input when R_s = 0 (in_k is then b_k): Z_dm = 2·3 kΩ, Z_cm = 3 kΩ/2 at DC
+    text = MOS_GATES.replace('resistance = "1 k"\n[mismatch]', f"resistance = {rs!r}\n[mismatch]")
+    assert f"resistance = {rs!r}" in text
+    d = _design(text + extra)
+    a = freqpair.analyze(d)
+    o = so.build(d)
+    gm = o.bias["pair1"]["gm"]
+    for f in (0.0, 1e3, 1e7):
+        ref = so.gains(o, f)
+        r = _fp(a, f)
+        so.assert_admittance(complex(r.zin_dm[0]), ref["zin_dm"], gm, f"dm {f:g} Hz")
+        so.assert_admittance(complex(r.zin_cm[0]), ref["zin_cm"], gm, f"cm {f:g} Hz")
+        assert _a_se(r) == pytest.approx(ref["a_se"], rel=1e-9)
+    j = a.to_json()
+    if extra is AT_IN1:
+        if rs == 0:
+            assert j["zin_dm_ohm"] == pytest.approx(6e3, rel=1e-12)
+            assert j["zin_cm_ohm"] == pytest.approx(1.5e3, rel=1e-12)
+        else:
+            assert j["zin_dm_ohm"] is None and j["zin_cm_ohm"] is None
