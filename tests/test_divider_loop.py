@@ -24,7 +24,9 @@ TWO_STAGE = (ROOT / "examples" / "two_stage_miller_loop.toml").read_text() \
     .replace("[feedback]\nfactor = 0.5\n", "")
 ADC_DRIVER = (ROOT / "examples" / "nmos_adc_driver_loop.toml").read_text() \
     .replace("[feedback]\nfactor = 0.25\n", "")
-assert "[feedback]" not in TWO_STAGE and "[feedback]" not in ADC_DRIVER
+OTA = (ROOT / "examples" / "ota_tail_cap_loop.toml").read_text() \
+    .replace("[feedback]\nfactor = 1\n", "")
+assert "[feedback]" not in TWO_STAGE + ADC_DRIVER + OTA
 
 DIVIDER = """
 [feedback]
@@ -43,6 +45,7 @@ CASES = [
     ("two_stage_lead", TWO_STAGE, 9e3, 3e-12, 9e3, 0.5e-12),
     ("adc_driver", ADC_DRIVER, 3e3, 0.0, 1e3, 2e-12),
     ("adc_driver_lead", ADC_DRIVER, 3e3, 0.3e-12, 1e3, 0.2e-12),
+    ("mirror_load_follower", OTA, 100.0, 0.0, 1e6, 3e-12),        # A_dm,se in the loop
 ]
 
 
