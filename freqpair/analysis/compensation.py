@@ -173,6 +173,12 @@ def _solve(design, key, target, lo, hi, rising: bool) -> CompensationResult:
 
     ua, ub = (math.log10(a), math.log10(b)) if a > 0 else (a, b)
     u = brentq(f, ua, ub, xtol=1e-12, rtol=1e-10)
+    if f(u) < 0:
+        # brentq's root may lie up to its tolerance on the side that misses the
+        # target: step to the side that meets it (at worst the bracket end, which does)
+        good = ub if rising else ua
+        step = math.copysign(4 * (1e-12 + 1e-10 * abs(u)), good - u)
+        u = u + step if abs(step) < abs(good - u) and f(u + step) >= 0 else good
     x = 10.0 ** u if a > 0 else u
     if not rising:      # report the largest value still meeting the target
         x = min(x, b)

@@ -220,10 +220,35 @@ def integrate_density(density, f_lo: float, f_hi: float, rtol: float = 1e-5,
         val = h / 3.0 * (g[0] + g[-1] + 4.0 * g[1:-1:2].sum() + 2.0 * g[2:-1:2].sum())
         if prev is not None and abs(val - prev) <= rtol * abs(val):
             return float(val)
-        if n >= decades * max_per_decade:
+        if n >= max(decades * max_per_decade, 256):
             return float(val)
         prev = val
         n *= 2
+
+
+def _band_pieces(resp: StageResponses, lo: float, hi: float) -> list[float]:
+    """The band's edges, split around every lightly damped pole of the network and
+    zero of the primary gain (natural frequency f_0 inside the band, Q above 5):
+    at f_0 and f_0 ± 1, 10, 100 … half-bandwidths |Re s|/2π (up to f_0/2). A
+    resonance narrower than the integration grid's first steps is then sampled at
+    its centre and its flanks resolved from the start, so the adaptive rule cannot
+    step over it (over the whole band at once it missed 3 % at Q ≈ 3,000 and
+    90 % at Q = 10⁶)."""
+    solver = resp.solver
+    l, kind = resp.output_row(resp.primary)
+    roots = np.concatenate([solver.poles(), solver.zeros(resp.excitation(kind), l)])
+    edges = {float(lo), float(hi)}
+    for r in roots:
+        w = abs(r)
+        if not math.isfinite(w) or w == 0.0 or abs(r.real) >= 0.1 * w:
+            continue
+        f0, step = w / (2 * math.pi), abs(r.real) / (2 * math.pi)
+        ladder = [f0]
+        while 0 < step < 0.5 * f0:
+            ladder += [f0 - step, f0 + step]
+            step *= 10.0
+        edges.update(float(x) for x in ladder if lo < x < hi)
+    return sorted(edges)
 
 
 def noise_analysis(resp: StageResponses, design) -> NoiseResult:
@@ -253,8 +278,12 @@ def noise_analysis(resp: StageResponses, design) -> NoiseResult:
         spots.append(NoiseSpot(float(f), float(nc.input_v_rthz[i]), float(nc.output_v_rthz[i]),
                                nf, contributors))
     lo, hi = design.noise.band
-    out_ms = integrate_density(lambda f: noise_curves(resp, f).output_v2_hz, lo, hi)
-    in_ms = integrate_density(lambda f: noise_curves(resp, f).input_v2_hz, lo, hi)
+    edges = _band_pieces(resp, lo, hi)
+    pieces = list(zip(edges[:-1], edges[1:]))
+    out_ms = sum(integrate_density(lambda f: noise_curves(resp, f).output_v2_hz, a, b)
+                 for a, b in pieces)
+    in_ms = sum(integrate_density(lambda f: noise_curves(resp, f).input_v2_hz, a, b)
+                for a, b in pieces)
     return NoiseResult(tuple(spots), (float(lo), float(hi)), math.sqrt(in_ms),
                        math.sqrt(out_ms))
 

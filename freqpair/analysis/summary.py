@@ -40,7 +40,12 @@ def _loop_lines(result) -> list[str]:
     """The feedback-loop section (only for designs with [feedback])."""
     from freqpair.analysis.loop import loop_analysis
     r = loop_analysis(result)
-    out = [f"Feedback loop (β_f = {result.design.feedback.factor:g})"]
+    fb = result.design.feedback
+    out = [f"Feedback loop (β_f = {fb.factor:g})" if fb.type != "divider" else
+           f"Feedback loop (divider R_f = {format_si(fb.series_resistance, 'Ω')} ∥ "
+           f"{format_si(fb.series_capacitance, 'F')} over R_g = "
+           f"{format_si(fb.shunt_resistance, 'Ω')} ∥ {format_si(fb.shunt_capacitance, 'F')}, "
+           f"β(0) = {fb.factor:g}; the divider alone, not loaded by the stage)"]
     if r is None:
         out.append("  no loop: the amplifier's DC gain is zero")
         return out
