@@ -446,7 +446,10 @@ def _op(text, **changes):
     d = freqpair.design_from_text(text)
     for k, v in changes.items():
         d = freqpair.replace_value(d, k.replace("__", "."), v)
-    return freqpair.analyze(d).to_json()["operating_point"]
+    a = freqpair.analyze(d)
+    op = a.to_json()["operating_point"]           # the contract's keys (DESIGN.md §4)
+    op["gmb"] = a.operating_point.small_signal.gmb   # g_mb: the library's own value
+    return op
 
 
 def test_operating_point_of_a_degenerated_cascoded_npn_pair():
