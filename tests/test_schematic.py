@@ -82,6 +82,18 @@ SECOND = {"gm": "8 mS", "output_resistance": "100 k", "input_capacitance": "1 pF
           "load_capacitance": "20 pF", "miller_capacitance": "8 pF",
           "nulling_resistance": "125"}
 
+DIVIDER = {"type": "divider", "series_resistance": "9 k", "series_capacitance": "1 pF",
+           "shunt_resistance": "1 k", "shunt_capacitance": "5 pF"}
+ELEMENTS = [  # drawn: the first shunt at t; listed: all the others
+    {"kind": "capacitor", "nodes": ["ground", "t"], "value": "1.5 pF", "name": "tail wiring"},
+    {"kind": "resistor", "nodes": ["t", "vneg"], "value": "1 M", "name": "tail leak"},
+    {"kind": "capacitor", "nodes": ["o1", "b2"], "value": "60 fF", "name": "coupling o1-b2"},
+    {"kind": "transconductance", "nodes": ["o2", "o1"], "value": "50 uS",
+     "control": ["e1", "ground"],
+     "name": "a rather long name for a leakage path between the outputs"},
+    {"kind": "capacitor", "nodes": ["o2", "ground"], "value": "0.2 pF"},
+]
+
 
 def _variant(example, **sections):
     """An example design file with whole sections replaced (checked by the loader)."""
@@ -117,6 +129,46 @@ VARIANTS = {
         second_stage=dict(SECOND, nulling_resistance=0)),
     "pnp_pair_resistor_load_ideal_tail": lambda: _variant(
         "npn_resistor_rc_tail", pair=PNP, tail={"type": "ideal"}),
+    # second edition (DESIGN.md §7): degeneration, cascoded pairs, divider, added elements
+    "npn_cascode_degenerated_divider_cf": lambda: _variant(
+        "npn_resistor_rc_tail",
+        pair=dict(NPN, degeneration="470", cascode=dict(NPN, bias=5)),
+        feedback=DIVIDER),
+    "pnp_cascode_pair_elements": lambda: _variant(
+        "npn_resistor_rc_tail", pair=dict(PNP, cascode=dict(PNP, bias=-5)),
+        element=[{"kind": "resistor", "nodes": ["t", "vpos"], "value": "200 k",
+                  "name": "tail leak"},
+                 {"kind": "transconductance", "nodes": ["o1", "o2"], "value": "-2 mS",
+                  "control": ["t", "ground"], "name": "substrate coupling"},
+                 {"kind": "capacitor", "nodes": ["o1", "o2"], "value": "30 fF"}]),
+    "nmos_cascode_degenerated_pair": lambda: _variant(
+        "nmos_resistor_ideal_tail",
+        pair=dict(NMOS, degeneration="1 k", body_effect=0.4,
+                  cascode=dict(NMOS, bias=2.4, body_effect=0.4)),
+        load={"type": "resistor", "resistance": "8 k", "capacitance": "150 fF"}),
+    "pmos_cascode_pair_mirror_load_factor": lambda: _variant(
+        "nmos_mirror_load_cascode_tail",
+        bias={"tail_current": "200 uA", "input_common_mode": 1.2},
+        pair=dict(PMOS, body_effect=0.5, cascode=dict(PMOS, bias=0.9)),
+        load={"type": "mirror", "capacitance": "0.5 pF", "device": dict(NMOS, body_effect=0.3)},
+        tail={"type": "cascode", "device": PMOS, "extra_capacitance": "0.3 pF"},
+        feedback={"factor": 0.2}),
+    "npn_degenerated_many_elements_factor": lambda: _variant(
+        "npn_degenerated_instrumentation", feedback={"factor": 0.1},
+        element=ELEMENTS),
+    "npn_drawn_element_long_name_mirror_tail": lambda: _variant(
+        "npn_mirror_load_simple_mirror_tail",
+        pair=dict(NPN, degeneration="2 k"),
+        element=[{"kind": "resistor", "nodes": ["vneg", "t"], "value": "4.7 M",
+                  "name": "a leakage path to the negative rail, long named"}]),
+    "nmos_divider_no_caps_balanced": lambda: _variant(
+        "nmos_adc_driver_loop", feedback={"type": "divider", "series_resistance": "30 k",
+                                          "shunt_resistance": "10 k"}),
+    "nmos_second_stage_divider_cf_cascode_degenerated": lambda: _variant(
+        "nmos_cascode_divider_loop",
+        pair=dict(NMOS, degeneration="2 k", cascode=dict(NMOS, bias=3.3)),
+        feedback=dict(DIVIDER, series_capacitance="0.9 pF"),
+        element=ELEMENTS[:1] + ELEMENTS[3:]),
 }
 ALL = ([(p.stem, lambda p=p: freqpair.load_design(p)) for p in EXAMPLES]
        + list(VARIANTS.items()))
@@ -252,3 +304,212 @@ def test_pnp_pair_swaps_the_rails():
           ET.fromstring(stage_svg(VARIANTS["pnp_pair_resistor_load_ideal_tail"]()))
           .iter(f"{SVG}text") if t.text.startswith(("V+", "V−"))}
     assert ys["V−"] < ys["V+"]
+
+
+# ----------------------------------------------------------------- second edition:
+# degeneration, cascoded pair, feedback divider, added elements, body effect
+
+def _ys(svg):
+    """Baseline height of each text (the first one of that text)."""
+    ys = {}
+    for t in ET.fromstring(svg).iter(f"{SVG}text"):
+        ys.setdefault(t.text, float(t.get("y")))
+    return ys
+
+
+def _height(svg):
+    return float(ET.fromstring(svg).get("viewBox").split()[3])
+
+
+SECOND_EDITION = list(VARIANTS)[list(VARIANTS).index("npn_cascode_degenerated_divider_cf"):]
+
+
+@pytest.mark.parametrize("name", SECOND_EDITION)
+def test_second_edition_variants_are_well_formed_svg(name):
+    # oracle: XML well-formedness (xml.etree); DESIGN.md §2 — both pair devices drawn
+    root = ET.fromstring(stage_svg(VARIANTS[name]()))
+    assert root.tag == f"{SVG}svg"
+    texts = [t.text for t in root.iter(f"{SVG}text")]
+    assert {"in1", "in2", "o1", "o2", "t"} <= set(texts)
+
+
+@pytest.mark.parametrize("name", ["npn_degenerated_instrumentation",
+                                  "nmos_cascode_degenerated_pair"])
+def test_degeneration_draws_R_E_in_each_leg_with_e_nodes(name):
+    # oracle: DESIGN.md §7a — one R_E per side, from the emitter/source (e1, e2) to t;
+    # the value from the design file (1 kΩ in both)
+    d = (VARIANTS[name]() if name in VARIANTS
+         else freqpair.load_design(ROOT / "examples" / f"{name}.toml"))
+    svg = stage_svg(d)
+    texts = _texts(svg)
+    label = f"R_E {format_si(d.pair.degeneration, 'Ω')}"
+    assert label == f"R_E {format_si(1e3, 'Ω')}"
+    assert texts.count(label) == 2
+    assert {"e1", "e2"} <= set(texts)
+    ys = _ys(svg)
+    # e_k lies between the pair device (its name) and the tail node
+    prefix = "Q" if d.pair.is_bipolar else "M"
+    assert ys[f"{prefix}1"] < ys["e1"] < ys["t"]
+
+
+def test_no_degeneration_draws_no_R_E_and_no_e_nodes():
+    # oracle: DESIGN.md §7a — degeneration 0 (the default) means none; e1/e2 exist
+    # only with degeneration > 0 (§7d)
+    d = freqpair.load_design(ROOT / "examples" / "npn_resistor_rc_tail.toml")
+    texts = _texts(stage_svg(d))
+    assert not any(t.startswith("R_E") for t in texts)
+    assert "e1" not in texts and "e2" not in texts
+
+
+@pytest.mark.parametrize("name,prefix,bias", [
+    ("npn_cascode_degenerated_divider_cf", "Q", 5.0),
+    ("pnp_cascode_pair_elements", "Q", -5.0),
+    ("nmos_cascode_degenerated_pair", "M", 2.4),
+    ("pmos_cascode_pair_mirror_load_factor", "M", 0.9),
+])
+def test_cascoded_pair_sits_between_c_and_o_with_its_bias(name, prefix, bias):
+    # oracle: DESIGN.md §7c — on each side the cascode device joins c_k (the pair
+    # device's collector/drain) to o_k; its base/gate on the DC bias (values from VARIANTS)
+    d = VARIANTS[name]()
+    svg = stage_svg(d)
+    texts = _texts(svg)
+    assert {"c1", "c2", f"{prefix}_c1", f"{prefix}_c2"} <= set(texts)
+    assert f"V_bias {format_si(bias, 'V')}" in texts
+    ys = _ys(svg)
+    for k in (1, 2):
+        assert ys[f"o{k}"] < ys[f"{prefix}_c{k}"] < ys[f"c{k}"] < ys[f"{prefix}{k}"]
+    if prefix == "Q":
+        # pair 2 + cascode 2 bipolar bodies (resistor load, Norton tail)
+        assert _device_circles(svg) == 4
+    assert any(t.startswith(f"cascode: {d.pair.type}") for t in texts)
+
+
+def test_cascode_makes_the_drawing_taller_and_keeps_the_pnp_rails_swapped():
+    # oracle: common practice — the drawing grows to hold an extra row; DESIGN.md §3a
+    # — a pnp stage is the mirror image (V− on top)
+    plain = freqpair.load_design(ROOT / "examples" / "npn_resistor_rc_tail.toml")
+    assert _height(stage_svg(VARIANTS["npn_cascode_degenerated_divider_cf"]())) > \
+        _height(stage_svg(plain))
+    pnp = stage_svg(VARIANTS["pnp_cascode_pair_elements"]())
+    ys = {k.split()[0]: v for k, v in _ys(pnp).items() if k.startswith(("V+ ", "V− "))}
+    assert ys["V−"] < ys["V+"]
+
+
+def test_no_cascode_draws_no_c_nodes():
+    # oracle: DESIGN.md §7c/§7d — c1/c2 exist only with [pair.cascode]
+    texts = _texts(stage_svg(freqpair.load_design(ROOT / "examples"
+                                                  / "nmos_adc_driver_loop.toml")))
+    assert not {"c1", "c2"} & set(texts) and not any(t.startswith("V_bias") for t in texts)
+
+
+@pytest.mark.parametrize("name,r_f,c_f,r_g,c_g,out", [
+    ("npn_cascode_degenerated_divider_cf", 9e3, 1e-12, 1e3, 5e-12, "o1−o2"),
+    ("nmos_divider_no_caps_balanced", 30e3, 0.0, 10e3, 0.0, "o1−o2"),
+    ("nmos_second_stage_divider_cf_cascode_degenerated", 9e3, 0.9e-12, 1e3, 5e-12, "out"),
+])
+def test_divider_draws_Rf_Cf_Rg_Cg_and_the_beta_arrow(name, r_f, c_f, r_g, c_g, out):
+    # oracle: DESIGN.md §7e — R_f ∥ C_f from the output to the feedback node, R_g ∥ C_g
+    # to ground, β(0) = R_g/(R_f+R_g) (values from DIVIDER / VARIANTS, β by hand)
+    svg = stage_svg(VARIANTS[name]())
+    texts = _texts(svg)
+    assert f"R_f {format_si(r_f, 'Ω')}" in texts and f"R_g {format_si(r_g, 'Ω')}" in texts
+    assert (f"C_f {format_si(c_f, 'F')}" in texts) == (c_f > 0)
+    assert any(t.startswith("C_f") for t in texts) == (c_f > 0)
+    assert (f"C_g {format_si(c_g, 'F')}" in texts) == (c_g > 0)
+    assert any(t.startswith("C_g") for t in texts) == (c_g > 0)
+    beta = r_g / (r_f + r_g)
+    assert f"feedback β(0) = R_g/(R_f+R_g) = {beta:.4g}" in texts
+    assert "fb" in texts and out in texts
+    assert not any("β_f" in t for t in texts)        # a divider is not a bare factor
+
+
+def test_divider_in_the_example_shows_its_values():
+    # oracle: examples/nmos_cascode_divider_loop.toml — R_f 90 k, C_f 0, R_g 10 k,
+    # C_g 8 pF: β(0) = 10/(90+10) = 0.1
+    svg = stage_svg(freqpair.load_design(ROOT / "examples" / "nmos_cascode_divider_loop.toml"))
+    texts = _texts(svg)
+    assert f"R_f {format_si(90e3, 'Ω')}" in texts and f"R_g {format_si(10e3, 'Ω')}" in texts
+    assert f"C_g {format_si(8e-12, 'F')}" in texts
+    assert not any(t.startswith("C_f") for t in texts)
+    assert "feedback β(0) = R_g/(R_f+R_g) = 0.1" in texts
+
+
+def test_feedback_factor_keeps_the_arrow_beside_or_under_the_notes():
+    # oracle: DESIGN.md §2 — a factor is β_f alone (0.2 / 0.1 in VARIANTS); no divider parts
+    for name, beta in (("pmos_cascode_pair_mirror_load_factor", 0.2),
+                       ("npn_degenerated_many_elements_factor", 0.1)):
+        texts = _texts(stage_svg(VARIANTS[name]()))
+        assert f"feedback β_f = {beta:g}" in texts
+        assert not any(t.startswith(("R_f", "R_g", "feedback β(0)")) for t in texts)
+
+
+def test_added_elements_in_the_example_are_drawn_or_listed():
+    # oracle: examples/npn_degenerated_instrumentation.toml and the rule of the module
+    # docstring — the shunt at t (1.5 pF to ground) is drawn; the couplings
+    # o1–b2 and o2–b1 (60 fF) are listed, one line each
+    texts = _texts(stage_svg(freqpair.load_design(
+        ROOT / "examples" / "npn_degenerated_instrumentation.toml")))
+    assert "tail wiring" in texts and format_si(1.5e-12, "F") in texts
+    assert "added elements" in texts
+    assert f"coupling o1-b2: capacitor {format_si(60e-15, 'F')}, o1 – b2" in texts
+    assert f"coupling o2-b1: capacitor {format_si(60e-15, 'F')}, o2 – b1" in texts
+    assert not any(t.startswith("tail wiring:") for t in texts)   # drawn, not listed
+
+
+def test_added_elements_rule_on_every_kind():
+    # oracle: the rule of the module docstring with ELEMENTS — the first shunt at t is
+    # drawn (its ground end reversed in the file), a second shunt at t, a coupling,
+    # a transconductance (with its control nodes, DESIGN.md §7d) and a shunt at o2
+    # are listed; an unnamed element is element.N (N from 0, DESIGN.md §7d), a long
+    # name is cut with "…"
+    texts = _texts(stage_svg(VARIANTS["npn_degenerated_many_elements_factor"]()))
+    listed = [t for t in texts if ": " in t and " – " in t]
+    assert "tail wiring" in texts and format_si(1.5e-12, "F") in texts
+    assert listed[0] == f"tail leak: resistor {format_si(1e6, 'Ω')}, t – vneg"
+    assert listed[1] == f"coupling o1-b2: capacitor {format_si(60e-15, 'F')}, o1 – b2"
+    assert listed[2].endswith(f"…: transconductance {format_si(50e-6, 'S')}, o2 – o1, "
+                              "controlled by e1 – ground")
+    assert listed[2].startswith("a rather long name")
+    assert listed[3] == f"element.4: capacitor {format_si(0.2e-12, 'F')}, o2 – ground"
+    assert len(listed) == 4
+
+
+def test_a_drawn_element_to_a_rail_is_marked_with_the_rail():
+    # oracle: DESIGN.md §7d/§7f — a resistor from t to vpos (200 k in VARIANTS) ends on
+    # the positive rail, V+ (a pnp stage: the drawn bottom rail is also V+)
+    texts = _texts(stage_svg(VARIANTS["pnp_cascode_pair_elements"]()))
+    assert "tail leak" in texts and format_si(200e3, "Ω") in texts
+    assert "V+" in texts
+    assert (f"substrate coupling: transconductance {format_si(-2e-3, 'S')}, o1 – o2, "
+            "controlled by t – ground") in texts
+    assert f"element.2: capacitor {format_si(30e-15, 'F')}, o1 – o2" in texts
+
+
+def test_no_added_elements_no_list():
+    # oracle: DESIGN.md §7d — without [[element]] there is nothing to list
+    texts = _texts(stage_svg(freqpair.load_design(ROOT / "examples" / "ota_tail_cap_loop.toml")))
+    assert "added elements" not in texts
+
+
+def test_body_effect_is_noted_per_device_group():
+    # oracle: DESIGN.md §7b — γ per device table; the example sets 0.45 √V on the pair,
+    # the cascode and the tail device (none on the load); VARIANTS: 0.5 pair, 0.3 load
+    texts = _texts(stage_svg(freqpair.load_design(
+        ROOT / "examples" / "nmos_cascode_divider_loop.toml")))
+    assert "body effect γ = 0.45 √V (pair, cascode, tail)" in texts
+    texts = _texts(stage_svg(VARIANTS["pmos_cascode_pair_mirror_load_factor"]()))
+    assert "body effect γ = 0.5 √V (pair); γ = 0.3 √V (load)" in texts
+    plain = _texts(stage_svg(freqpair.load_design(ROOT / "examples"
+                                                  / "nmos_adc_driver_loop.toml")))
+    assert not any(t.startswith("body effect") for t in plain)
+
+
+def test_a_long_drawn_name_is_cut_and_the_rail_marked():
+    # oracle: the rule of the module docstring (names longer than the place for them
+    # end in "…"); DESIGN.md §7d — the element joins t to vneg (V−), 4.7 MΩ
+    from freqpair.views.schematic import NAME_DRAWN
+    texts = _texts(stage_svg(VARIANTS["npn_drawn_element_long_name_mirror_tail"]()))
+    cut = [t for t in texts if t.startswith("a leakage path")]
+    assert len(cut) == 1 and cut[0].endswith("…") and len(cut[0]) == NAME_DRAWN
+    assert format_si(4.7e6, "Ω") in texts and "V−" in texts
+    assert "added elements" not in texts

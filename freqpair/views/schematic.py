@@ -7,9 +7,32 @@ resistor, cascode stack, each base/gate on a labelled bias node), the source
 resistors and the load capacitors, each labelled with its value. A second
 stage is drawn as an inverting transconductor (a triangle marked −g_m2) from
 o2 to ``out`` with C_in, R_out, its load capacitor and the Miller capacitor
-(with the nulling resistor when non-zero); the drawing widens to hold it. A
-stage in a loop gets a dashed arrow marked with β_f. pnp/pmos pairs are the
-mirror image: the rails swap, the drawing keeps its shape. The drawing is made here from lines, paths and text — freqpair's own
+(with the nulling resistor when non-zero); the drawing widens to hold it.
+
+The second edition of the design (DESIGN.md §7) adds:
+
+- pair degeneration: a resistor R_E in each emitter/source leg, from the
+  device (node e1/e2, marked) down to the tail node;
+- a cascoded pair: on each side the cascode device between the pair device's
+  collector/drain (node c1/c2, marked) and the output o1/o2, in the pair's
+  symbol style; both bases/gates on one bus marked with the bias voltage
+  ("V_bias 3.3 V"). The drawing grows downward to hold the extra rows;
+- a feedback divider: a band under the stage with R_f (∥ C_f when non-zero)
+  from the output to the feedback node fb and R_g (and C_g when non-zero) from
+  fb to ground, each with its value, and the dashed arrow back to the inputs
+  marked β(0) = R_g/(R_f+R_g). A feedback factor keeps the dashed arrow with β_f;
+- added elements, by one rule: a resistor or capacitor between the tail node
+  ``t`` and ``ground``, ``vpos`` or ``vneg`` is *drawn*, hanging from the tail
+  line on its free left side, with its name and value (the first such element
+  only: there is one place for it). Every other added element — between two
+  stage nodes, at any other node, a transconductance, a second one at ``t`` —
+  is *listed* in the "added elements" block under the drawing, one line each:
+  name, kind, value and "node A – node B" (and the controlling nodes of a
+  transconductance). Nothing in the list is drawn, nothing drawn is listed;
+- the notes name the cascode device and any MOS body effect (γ per device group).
+
+pnp/pmos pairs are the mirror image: the rails swap, the drawing keeps its
+shape. The drawing is made here from lines, paths and text — freqpair's own
 look — and needs nothing at run time but the standard library.
 """
 from __future__ import annotations
@@ -188,6 +211,56 @@ def _pair_label(dev) -> str:
             f"V_th {_v(dev.threshold, 'V')}")
 
 
+class _Layout:
+    """Heights of the rows, which depend on what the pair holds: a cascoded
+    pair adds a device row above the pair devices, degeneration a resistor
+    row below them; everything from the pair down moves with them."""
+
+    def __init__(self, design):
+        pair = design.pair
+        y = Y_OUT + 22
+        self.y_cas = self.y_c = None
+        if pair.cascode is not None:
+            self.y_cas = (Y_OUT + 22, Y_OUT + 104)   # collector/drain, emitter/source
+            self.y_c = Y_OUT + 116                   # nodes c1, c2
+            y = self.y_c + 12
+        self.y_dev = (y, y + 82)                     # the pair devices
+        self.y_e = None
+        if pair.degeneration > 0:
+            self.y_e = y + 94                        # nodes e1, e2
+            self.y_tail = self.y_e + 66
+        else:
+            self.y_tail = y + 112
+        self.y_bot = self.y_tail + Y_BOT[design.tail.type] - Y_TAIL
+
+
+#: where a drawn added element hangs from the tail line (left of side 1)
+X_ADDED = X1 - 44
+#: longest element name shown in full (drawn / listed); longer ones are cut with "…"
+NAME_DRAWN, NAME_LISTED = 20, 28
+_UNITS = {"resistor": "Ω", "capacitor": "F", "transconductance": "S"}
+_RAILS = {"ground": None, "vpos": "V+", "vneg": "V−"}
+
+
+def _element_name(el, index) -> str:
+    return el.name if el.name is not None else f"element.{index}"
+
+
+def _short(s: str, n: int) -> str:
+    return s if len(s) <= n else s[:n - 1] + "…"
+
+
+def _split_elements(design):
+    """The rule of the module docstring: ``(drawn, listed)``, each a list of
+    ``(index, element)``; at most one drawn element (a shunt at t)."""
+    drawn, listed = [], []
+    for i, el in enumerate(design.element):
+        shunt_at_t = (el.kind in ("resistor", "capacitor") and "t" in el.nodes
+                      and set(el.nodes) - {"t"} <= set(_RAILS))
+        (drawn if shunt_at_t and not drawn else listed).append((i, el))
+    return drawn, listed
+
+
 def stage_svg(design, width: int | None = None) -> str:
     """SVG drawing of the stage described by ``design``.
 
@@ -205,12 +278,13 @@ def stage_svg(design, width: int | None = None) -> str:
     """
     p = _Pen()
     pair = design.pair
+    lay = _Layout(design)
     pnp_pair = pair.type in ("pnp", "pmos")
     top_name = "V−" if pnp_pair else "V+"
     bot_name = "V+" if pnp_pair else "V−"
     top_v = design.supply.negative if pnp_pair else design.supply.positive
     bot_v = design.supply.positive if pnp_pair else design.supply.negative
-    y_bot = Y_BOT[design.tail.type]
+    y_bot, y_tail = lay.y_bot, lay.y_tail
     w = W_SECOND if design.second_stage is not None else W
 
     # rails
@@ -234,10 +308,13 @@ def stage_svg(design, width: int | None = None) -> str:
             p.text(cx + 12 * sgn, Y_OUT + 22, f"C_L {_v(c_load, 'F')}", "value",
                    "start" if sgn > 0 else "end")
 
+    if pair.cascode is not None:
+        _draw_cascode(p, design, lay)
+
     # pair devices
-    y_dev_top, y_dev_bot = Y_OUT + 22, Y_TAIL - 30
+    y_dev_top, y_dev_bot = lay.y_dev
     for side, x, facing in ((1, X1, 1), (2, X2, -1)):
-        p.line(x, Y_OUT, x, y_dev_top)
+        p.line(x, lay.y_c if lay.y_c is not None else Y_OUT, x, y_dev_top)
         bx, yc = p.device(pair, x, y_dev_top, y_dev_bot, facing)
         # input lead with source resistor
         xin = x - 150 * facing
@@ -254,26 +331,164 @@ def stage_svg(design, width: int | None = None) -> str:
         p.text(xin, yc - 12, f"in{side}", "node", "middle")
         p.text(x + 30 * facing, yc + 4, f"Q{side}" if pair.is_bipolar else f"M{side}",
                "device", "start" if facing > 0 else "end", 12, "bold")
-        p.line(x, y_dev_bot, x, Y_TAIL)
-    p.line(X1, Y_TAIL, X2, Y_TAIL)
-    p.dot(XC, Y_TAIL)
-    p.text(XC + 8, Y_TAIL - 6, "t", "node")
+        if lay.y_e is not None:
+            # degeneration: device → e_k → R_E → tail node (labels toward the centre)
+            p.line(x, y_dev_bot, x, lay.y_e)
+            p.dot(x, lay.y_e)
+            anchor = "start" if facing > 0 else "end"
+            p.text(x + 8 * facing, lay.y_e - 6, f"e{side}", "node", anchor)
+            p.resistor_v(x, lay.y_e, y_tail)
+            p.text(x + 14 * facing, (lay.y_e + y_tail) / 2 + 8,
+                   f"R_E {_v(pair.degeneration, 'Ω')}", "value", anchor)
+        else:
+            p.line(x, y_dev_bot, x, y_tail)
+    p.line(X1, y_tail, X2, y_tail)
+    p.dot(XC, y_tail)
+    p.text(XC + 8, y_tail - 6, "t", "node")
 
-    _draw_tail(p, design, y_bot)
+    _draw_tail(p, design, lay)
+    drawn, listed = _split_elements(design)
+    for index, el in drawn:
+        _draw_tail_element(p, el, index, y_tail)
     if design.second_stage is not None:
         _draw_second_stage(p, design.second_stage)
-    y_notes = _draw_notes(p, design, y_bot)
-    if design.feedback is not None:
-        _draw_feedback(p, design, w, y_bot)
-    h = y_notes + 14
+    y_ref = y_bot
+    if design.feedback is not None and design.feedback.type == "divider":
+        y_ref = _draw_divider(p, design, y_bot + 18)
+    y_last, notes_right = _draw_notes(p, design, y_ref)
+    if design.feedback is not None and design.feedback.type != "divider":
+        y_last = _draw_feedback(p, design, w, y_ref, y_last, notes_right)
+    if listed:
+        y_last = _draw_listed(p, listed, y_last + 24, w)
+    h = y_last + 14
 
     width = width or w
     size = f' width="{width}" height="{round(width * h / w)}"'
     title = escape(design.name or "differential stage")
-    return (f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {w} {h}"{size} '
+    return (f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {w} {h:g}"{size} '
             f'role="img" aria-label="schematic: {title}" class="freqpair-schematic">'
-            f'<rect x="0" y="0" width="{w}" height="{h}" rx="10" '
+            f'<rect x="0" y="0" width="{w}" height="{h:g}" rx="10" '
             f'fill="{SCHEMATIC_COLOURS["paper"]}"/>' + "".join(p.parts) + "</svg>")
+
+
+def _draw_cascode(p: _Pen, design, lay: _Layout) -> None:
+    """The cascode device on each side, from o_k down to c_k; bases/gates turned
+    toward the centre onto one bias bus, names on the outer side."""
+    cas = design.pair.cascode
+    y_top, y_bot = lay.y_cas
+    gates = []
+    for side, x, facing in ((1, X1, -1), (2, X2, 1)):
+        p.line(x, Y_OUT, x, y_top)
+        gates.append(p.device(cas, x, y_top, y_bot, facing))
+        p.line(x, y_bot, x, lay.y_c)
+        p.dot(x, lay.y_c)
+        p.text(x - 8 * facing, lay.y_c - 6, f"c{side}", "node",
+               "start" if facing < 0 else "end")
+        p.text(x + 30 * facing, gates[-1][1] + 4, ("Q" if cas.is_bipolar else "M") + f"_c{side}",
+               "device", "end" if facing < 0 else "start", 12, "bold")
+    (gx1, yc), (gx2, _) = gates
+    p.line(gx1, yc, gx2, yc)
+    p.dot(XC, yc)
+    p.text(XC, yc - 8, f"V_bias {_v(cas.bias, 'V')}", "note", "middle", 11)
+
+
+def _draw_tail_element(p: _Pen, el, index, y_tail) -> None:
+    """A resistor or capacitor from the tail node to ground or a rail, hanging
+    from the tail line left of side 1, its name and value to its left."""
+    x, y2 = X_ADDED, y_tail + 40
+    p.line(X_ADDED, y_tail, X1, y_tail)
+    p.dot(X1, y_tail)
+    if el.kind == "resistor":
+        p.resistor_v(x, y_tail, y2)
+    else:
+        p.capacitor_v(x, y_tail, y2)
+    rail = _RAILS[next(n for n in el.nodes if n != "t")]
+    if rail is None:
+        p.ground(x, y2)
+    else:
+        p.line(x - 9, y2, x + 9, y2, width=2.2)
+        p.text(x, y2 + 14, rail, "note", "middle", 11)
+    p.text(x - 14, y_tail + 18, _short(_element_name(el, index), NAME_DRAWN), "value", "end", 11)
+    p.text(x - 14, y_tail + 32, _v(el.value, _UNITS[el.kind]), "value", "end", 11)
+
+
+def _draw_listed(p: _Pen, listed, y, w) -> float:
+    """The "added elements" block: one line per listed element (a
+    transconductance's controlling nodes on a second line when the first would
+    not fit in ``w``); returns the baseline of the last line."""
+    p.text(16, y, "added elements", "note", "start", 11, "bold")
+    for index, el in listed:
+        y += 16
+        a, b = el.nodes
+        line = (f"{_short(_element_name(el, index), NAME_LISTED)}: {el.kind} "
+                f"{_v(el.value, _UNITS[el.kind])}, {a} – {b}")
+        more = None
+        if el.kind == "transconductance":
+            c0, c1 = el.control
+            more = f"controlled by {c0} – {c1}"
+            if 28 + _text_width(f"{line}, {more}", 11) <= w - 16:
+                line, more = f"{line}, {more}", None
+        p.text(28, y, line, "note", "start", 11)
+        if more is not None:
+            y += 16
+            p.text(40, y, more, "note", "start", 11)
+    return y
+
+
+def _text_width(s: str, size: float) -> float:
+    """A generous estimate of a sans-serif label's width [px]."""
+    return 0.55 * size * len(s)
+
+
+def _draw_divider(p: _Pen, design, y_b) -> float:
+    """The feedback divider in a band from ``y_b`` down: the output terminal on
+    the right, R_f (∥ C_f) to the node fb, R_g and C_g from fb to ground, and the
+    dashed arrow from fb back toward the inputs with β(0). Returns the band's
+    bottom."""
+    fb = design.feedback
+    out = _output_name(design)
+    y = y_b + 52
+    x_fb, x_cg, x_rf0, x_rf1, x_term = 300, 352, 420, 500, 526
+    # the arrow back to the inputs
+    p.dashed([(x_fb, y), (42, y)])
+    p.poly([(38, y), (48, y - 5), (48, y + 5)], p.c["note"])
+    p.text(170, y - 8, f"feedback β(0) = R_g/(R_f+R_g) = {fb.factor:.4g}", "note",
+           "middle", 11)
+    p.text(170, y + 16, "back to the inputs", "note", "middle", 11)
+    # fb node, R_g and C_g to ground
+    p.dot(x_fb, y)
+    p.text(x_fb + 6, y - 8, "fb", "node")
+    p.resistor_v(x_fb, y, y + 72)
+    p.ground(x_fb, y + 72)
+    p.text(x_fb - 14, y + 44, f"R_g {_v(fb.shunt_resistance, 'Ω')}", "value", "end")
+    p.line(x_fb, y, x_rf0, y)
+    if fb.shunt_capacitance > 0:
+        p.dot(x_cg, y)
+        p.capacitor_v(x_cg, y, y + 40)
+        p.ground(x_cg, y + 40)
+        p.text(x_cg + 12, y + 26, f"C_g {_v(fb.shunt_capacitance, 'F')}", "value")
+    # R_f (∥ C_f) from the output terminal to fb
+    p.resistor_h(x_rf0, x_rf1, y)
+    p.text((x_rf0 + x_rf1) / 2, y + 26, f"R_f {_v(fb.series_resistance, 'Ω')}", "value",
+           "middle")
+    if fb.series_capacitance > 0:
+        y_cf = y - 28
+        p.dot(x_rf0, y)
+        p.dot(x_rf1, y)
+        p.line(x_rf0, y, x_rf0, y_cf)
+        p.line(x_rf1, y, x_rf1, y_cf)
+        p.capacitor_h(x_rf0, x_rf1, y_cf)
+        p.text((x_rf0 + x_rf1) / 2, y_cf - 14, f"C_f {_v(fb.series_capacitance, 'F')}",
+               "value", "middle")
+    p.line(x_rf1, y, x_term - 6, y)
+    p.circle(x_term, y, 5, SCHEMATIC_COLOURS["wire"])
+    p.text(x_term, y - 12, out, "node", "middle")
+    return y + 72
+
+
+def _output_name(design) -> str:
+    return ("out" if design.second_stage is not None
+            else "o2" if design.load.type == "mirror" else "o1−o2")
 
 
 def _draw_load(p: _Pen, design) -> None:
@@ -330,11 +545,12 @@ def _tail_device(p: _Pen, dev, y_out, y_common, name, role, bias):
     p.text(XC + 64, yc + 11, _device_words(dev), "value", "start", 11)
 
 
-def _draw_tail(p: _Pen, design, y_bot) -> None:
+def _draw_tail(p: _Pen, design, lay: _Layout) -> None:
     tail = design.tail
+    y_bot, y_tail = lay.y_bot, lay.y_tail
     i_tail = design.bias.tail_current
     down = design.pair.type in ("npn", "nmos")
-    y1 = Y_TAIL
+    y1 = y_tail
     if tail.type == "ideal":
         p.current_source(XC, y1, y_bot, downward=down)
         p.text(XC + 24, (y1 + y_bot) / 2 + 4, f"I_tail {_v(i_tail, 'A')} (ideal)", "value")
@@ -382,11 +598,11 @@ def _draw_tail(p: _Pen, design, y_bot) -> None:
             p.line(XC, y_common, XC, y_bot)
     if tail.extra_capacitance > 0:
         cx = X2 + 50
-        p.line(X2, Y_TAIL, cx, Y_TAIL)
-        p.dot(X2, Y_TAIL)
-        p.capacitor_v(cx, Y_TAIL, Y_TAIL + 34)
-        p.ground(cx, Y_TAIL + 34)
-        p.text(cx + 12, Y_TAIL + 22, f"C_extra {_v(tail.extra_capacitance, 'F')}", "value")
+        p.line(X2, y_tail, cx, y_tail)
+        p.dot(X2, y_tail)
+        p.capacitor_v(cx, y_tail, y_tail + 34)
+        p.ground(cx, y_tail + 34)
+        p.text(cx + 12, y_tail + 22, f"C_extra {_v(tail.extra_capacitance, 'F')}", "value")
 
 
 def _draw_second_stage(p: _Pen, st) -> None:
@@ -442,32 +658,61 @@ def _draw_second_stage(p: _Pen, st) -> None:
         p.text(x_c - 11, y_m - 12, f"C_c {_v(st.miller_capacitance, 'F')}", "value", "middle")
 
 
-def _draw_feedback(p: _Pen, design, w, y_bot) -> None:
-    """A dashed arrow from the output back toward the inputs, with β_f."""
-    out = ("out" if design.second_stage is not None
-           else "o2" if design.load.type == "mirror" else "o1−o2")
-    y = y_bot + 46
+def _draw_feedback(p: _Pen, design, w, y_ref, y_last, notes_right) -> float:
+    """A feedback factor: a dashed arrow from the output back toward the
+    inputs, with β_f — right of the notes, or under them when a note reaches
+    that far. Returns the lowest baseline used."""
+    out = _output_name(design)
     x0, x1 = w - 24, w - 230
+    y = y_ref + 46 if notes_right < x1 - 30 else y_last + 40
     p.dashed([(x0, y), (x1, y)])
     p.poly([(x1 - 2, y), (x1 + 8, y - 5), (x1 + 8, y + 5)], p.c["note"])
     p.text((x0 + x1) / 2, y - 8, f"feedback β_f = {design.feedback.factor:g}", "note",
            "middle", 11)
     p.text((x0 + x1) / 2, y + 16, f"from {out} back to the inputs", "note", "middle", 11)
+    return max(y_last, y + 24)
 
 
-def _draw_notes(p: _Pen, design, y_bot) -> float:
-    """The notes under the drawing; returns the baseline of the last one."""
+def _body_effect_note(design) -> str | None:
+    """The note "body effect γ = …" for the MOS devices that have it, grouped
+    by value (None when no device has it)."""
+    groups: dict[float, list[str]] = {}
+    devices = [("pair", design.pair), ("cascode", design.pair.cascode),
+               ("load", getattr(design.load, "device", None)),
+               ("tail", getattr(design.tail, "device", None))]
+    for role, dev in devices:
+        gamma = getattr(dev, "body_effect", 0.0)      # bipolar devices and None: 0
+        if gamma > 0:
+            groups.setdefault(gamma, []).append(role)
+    if not groups:
+        return None
+    return "body effect " + "; ".join(f"γ = {g:g} √V ({', '.join(roles)})"
+                                      for g, roles in groups.items())
+
+
+def _draw_notes(p: _Pen, design, y_ref) -> tuple[float, float]:
+    """The notes under the drawing (below ``y_ref``); returns the baseline of
+    the last one and their (estimated) right edge."""
     notes = [f"pair: {_pair_label(design.pair)}"]
+    if design.pair.cascode is not None:
+        notes.append(f"cascode: {_pair_label(design.pair.cascode)}")
+    body = _body_effect_note(design)
+    if body is not None:
+        notes.append(body)
     mm = design.mismatch
     if mm.load or mm.gm:
         notes.append(f"mismatch: load {mm.load * 100:g} %, g_m {mm.gm * 100:g} % "
                      "(split ±½ between sides)")
     if design.second_stage is not None:
         notes.append("second stage: inverting transconductor from o2 to out")
+    fb = design.feedback
+    if fb is not None and fb.type == "divider":
+        notes.append(f"feedback divider from {_output_name(design)}, alone "
+                     "(not loaded by the stage)")
     notes.append(f"input common mode {_v(design.bias.input_common_mode, 'V')}, "
                  f"T = {design.bias.temperature:g} K")
-    y = y_bot + 28
+    y = y_ref + 28
     for i, n in enumerate(notes):
-        y = y_bot + 28 + 16 * i
+        y = y_ref + 28 + 16 * i
         p.text(16, y, n, "note", "start", 11)
-    return max(y, y_bot + 70 if design.feedback is not None else y)
+    return y, 16 + max(_text_width(n, 11) for n in notes)
