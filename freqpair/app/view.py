@@ -66,12 +66,34 @@ document.body.appendChild(a); a.click(); a.remove();
 setTimeout(() => URL.revokeObjectURL(url), 1000);
 """
 
+#: Redraw a DataTable's cells when its source gets new data. Bokeh 3.9's table view
+#: redraws only when the table's CDSView changes, and replacing ``source.data``
+#: with the same number of rows leaves the view's indices equal, so the page kept
+#: the old cells (3.4–3.8 and 3.10 redraw; measured in DEVELOPERS.md). This calls
+#: the table view's own ``updateGrid`` — what 3.10 connects to the source itself —
+#: after the whole server message is applied (a microtask), keeping the scroll
+#: position, sorting and column widths. ``rerender`` is the fallback should the
+#: method ever be missing.
+_REDRAW_TABLE_JS = """
+Promise.resolve().then(() => {
+  for (const view of Bokeh.index.find(table)) {
+    if (typeof view.updateGrid === "function") { view.updateGrid(); }
+    else if (typeof view.rerender === "function") { view.rerender(); }
+  }
+});
+"""
+
 _CSS_HEADER = ("background:#1f2a36;color:#fbf8f3;padding:6px 12px;border-radius:4px;"
                "font-family:sans-serif;")
 
 
 def _empty(columns):
     return {c: [] for c in columns}
+
+
+def _redraw_on_new_data(table) -> None:
+    """Make the page redraw ``table``'s cells whenever its source's data is replaced."""
+    table.source.js_on_change("data", CustomJS(args={"table": table}, code=_REDRAW_TABLE_JS))
 
 
 @dataclass(frozen=True)
@@ -178,6 +200,8 @@ class Explorer:
                                   TableColumn(field="error", title="error", width=60),
                                   TableColumn(field="method", title="method", width=200)],
                          width=470, height=520)
+        for table in (metrics, hand):
+            _redraw_on_new_data(table)
         main = Tabs(name="views", sizing_mode="stretch_width", tabs=[
             TabPanel(title="Gains", child=column(mag, phase, sizing_mode="stretch_width")),
             TabPanel(title="CMRR", child=column(cmrr, sizing_mode="stretch_width")),
