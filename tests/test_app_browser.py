@@ -336,3 +336,26 @@ def test_tables_and_status_line_show_the_design_typed_in_the_page(tmp_path):
         # oracle: freqpair.analyze on the same design (the corner marker on the CMRR plot)
         assert corner == pytest.approx(want["corner"], rel=1e-9), where
     assert errors == []
+
+
+AXIS_TICKS_JS = """
+const fig = Bokeh.documents[0].get_model_by_name('pole_zero_figure');
+const ticks = arguments[0];
+return [...fig.below, ...fig.left].map(axis => axis.formatter.doFormat(ticks, {loc: 0}));
+"""
+
+
+@pytest.mark.browser
+def test_pole_zero_axes_write_frequencies_in_engineering_notation(server, tmp_path):
+    port, proc = server
+    ticks = [1.0, 12.5, 100.0, 999.96, 1e3, 2.5e4, 1.5e8, -5e7, -1.5e8, 0.0, 4.7e9]
+    driver = make_driver(tmp_path)
+    try:
+        driver.get(f"http://127.0.0.1:{port}/")
+        wait_for_bokeh(driver)
+        labels = driver.execute_script(AXIS_TICKS_JS, ticks)
+    finally:
+        driver.quit()
+    # oracle: freqpair.format_si, which writes every frequency freqpair prints
+    want = [freqpair.format_si(t, "Hz") for t in ticks]
+    assert labels == [want, want]      # |Re s|/2π axis and Im s/2π axis

@@ -187,6 +187,7 @@ class Explorer:
         self._figures = (mag, phase, cmrr)
         self._label_curves()
         pz = pole_zero_figure(self.pz, height=480)
+        pz.name = "pole_zero_figure"
         self.measured.add_to(mag, cmrr)
         self.measured.show(self.data)
         metrics = DataTable(source=self.metrics, name="metrics_table", index_position=None,

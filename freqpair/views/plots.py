@@ -9,7 +9,8 @@ colours of the renderers it finds by name).
 from __future__ import annotations
 
 __all__ = ["PALETTE", "GAIN_SERIES", "bode_figure", "cmrr_figure", "pole_zero_figure",
-           "add_residual_axis", "eng_formatter", "style_figure", "freq_figure", "mark_frequency",
+           "add_residual_axis", "eng_formatter", "eng_tick_formatter", "eng_ticks",
+           "style_figure", "freq_figure", "mark_frequency",
            "CYCLE", "PIN_STYLES", "pin_legend_items", "set_legend_label"]
 
 #: freqpair's own colours: deep teal, burnt orange, plum, olive, crimson, amber; the
@@ -35,16 +36,18 @@ GAIN_SERIES = (("adm", "differential gain A_dm"),
                ("acm_se", "common-mode gain A_cm,se (o2)"),
                ("acm_dm", "common-mode to differential A_cm-dm"))
 
-_ENG_JS = """
-const v = value;
+#: Engineering notation in JavaScript: ``v`` → "1.5 kHz" (4 significant digits, SI
+#: prefix, ``UNIT`` appended), as :func:`freqpair.design.quantities.format_si` writes it.
+_ENG_BODY = """
 if (v == null || !isFinite(v)) { return "—"; }
 if (v === 0) { return "0 " + UNIT; }
 let e = Math.floor(Math.log10(Math.abs(v)) / 3) * 3;
 e = Math.max(-18, Math.min(15, e));
+let s = (v / Math.pow(10, e)).toPrecision(4);
+if (Math.abs(Number(s)) >= 1000 && e < 15) { e += 3; s = (v / Math.pow(10, e)).toPrecision(4); }
 const p = {"-18": "a", "-15": "f", "-12": "p", "-9": "n", "-6": "µ", "-3": "m", "0": "",
            "3": "k", "6": "M", "9": "G", "12": "T", "15": "P"}[String(e)];
-let s = (v / Math.pow(10, e)).toPrecision(4);
-if (s.indexOf(".") >= 0) { s = s.replace(/0+$/, "").replace(/\\.$/, ""); }
+if (s.indexOf("e") < 0 && s.indexOf(".") >= 0) { s = s.replace(/0+$/, "").replace(/\\.$/, ""); }
 return s + " " + p + UNIT;
 """
 
@@ -52,7 +55,22 @@ return s + " " + p + UNIT;
 def eng_formatter(unit: str):
     """A hover formatter showing a number in engineering notation with ``unit``."""
     from bokeh.models import CustomJSHover
-    return CustomJSHover(code=_ENG_JS.replace("UNIT", repr(unit)))
+    return CustomJSHover(code="const v = value;" + _ENG_BODY.replace("UNIT", repr(unit)))
+
+
+def eng_tick_formatter(unit: str):
+    """An axis tick formatter writing ticks in engineering notation with ``unit``
+    ("100 kHz", "−50 MHz") — the notation of every number freqpair prints."""
+    from bokeh.models import CustomJSTickFormatter
+    return CustomJSTickFormatter(code="const v = tick;" + _ENG_BODY.replace("UNIT", repr(unit)))
+
+
+def eng_ticks(axis, unit: str = "Hz") -> None:
+    """Give ``axis`` (an axis or a splattable list of axes) engineering-notation tick labels
+    with ``unit``; labels that would overlap are left out."""
+    from bokeh.models import NoOverlap
+    axis.formatter = eng_tick_formatter(unit)
+    axis.major_label_policy = NoOverlap()
 
 
 def style_figure(fig) -> None:
@@ -146,7 +164,8 @@ def _freq_figure(title, y_label, x_range=None, **kw):
     if x_range is not None:
         args["x_range"] = x_range
     fig = figure(**args, **kw)
-    fig.xaxis.axis_label = "frequency [Hz]"
+    fig.xaxis.axis_label = "frequency"
+    eng_ticks(fig.xaxis, "Hz")
     fig.yaxis.axis_label = y_label
     return fig
 
@@ -277,8 +296,10 @@ def pole_zero_figure(source, title: str = "Poles (×) and zeros (○)", height: 
     from bokeh.transform import factor_cmap
     fig = figure(x_axis_type="log", title=title, height=height, sizing_mode="stretch_width",
                  tools="pan,wheel_zoom,box_zoom,reset,save", active_scroll=None)
-    fig.xaxis.axis_label = "|real part| / 2π [Hz]  (decay rate)"
-    fig.yaxis.axis_label = "imaginary part / 2π [Hz]"
+    fig.xaxis.axis_label = "|real part| / 2π  (decay rate)"
+    fig.yaxis.axis_label = "imaginary part / 2π"
+    eng_ticks(fig.xaxis, "Hz")
+    eng_ticks(fig.yaxis, "Hz")
     cmap = factor_cmap("half_plane", [PALETTE["adm"], PALETTE["target"]], ["left", "right"])
     poles = fig.scatter("abs_re_hz", "im_hz", source=source, marker="x", size=14, line_width=2.5,
                         color=cmap, view=CDSView(filter=GroupFilter(column_name="kind",
