@@ -11,7 +11,8 @@ from dataclasses import dataclass
 import tomli_w
 from bokeh.layouts import column, row
 from bokeh.models import (Button, ColumnDataSource, CustomJS, DataTable, Div, FileInput,
-                          Select, Slider, TableColumn, TabPanel, Tabs, TextInput)
+                          InlineStyleSheet, Select, Slider, TableColumn, TabPanel, Tabs,
+                          TextInput)
 
 from freqpair.design.files import BUILTIN_EXAMPLE, design_from_text, load_design
 from freqpair.design.schema import design_to_dict, parse_design
@@ -81,6 +82,17 @@ Promise.resolve().then(() => {
     else if (typeof view.rerender === "function") { view.rerender(); }
   }
 });
+"""
+
+#: Table heights: the Numbers and Hand estimates views fit a 1366×768 screen (the
+#: grid scrolls inside when a design has more rows).
+_TABLE_PX = 470
+#: Hand-estimate rows hold up to three lines of the wrapped method text.
+_HAND_ROW_PX = 42
+#: Wrap the hand table's quantity and method cells (the grid's cells do not wrap).
+_WRAP_CSS = """
+.slick-cell.l0, .slick-cell.l4 { white-space: normal; line-height: 1.15; text-overflow: clip; }
+.slick-cell { display: flex; align-items: center; }
 """
 
 _CSS_HEADER = ("background:#1f2a36;color:#fbf8f3;padding:6px 12px;border-radius:4px;"
@@ -191,25 +203,29 @@ class Explorer:
         self.measured.add_to(mag, cmrr)
         self.measured.show(self.data)
         metrics = DataTable(source=self.metrics, name="metrics_table", index_position=None,
-                            columns=[TableColumn(field="quantity", title="quantity", width=260),
-                                     TableColumn(field="value", title="value", width=160)],
-                            width=440, height=520)
+                            columns=[TableColumn(field="quantity", title="quantity", width=290),
+                                     TableColumn(field="value", title="value", width=230)],
+                            width=520, height=_TABLE_PX)
         hand = DataTable(source=self.hand, name="hand_table", index_position=None,
-                         columns=[TableColumn(field="quantity", title="quantity", width=170),
-                                  TableColumn(field="exact", title="exact", width=80),
-                                  TableColumn(field="approx", title="by hand", width=80),
-                                  TableColumn(field="error", title="error", width=60),
-                                  TableColumn(field="method", title="method", width=200)],
-                         width=470, height=520)
+                         columns=[TableColumn(field="quantity", title="quantity", width=200),
+                                  TableColumn(field="exact", title="exact", width=78),
+                                  TableColumn(field="approx", title="by hand", width=78),
+                                  TableColumn(field="error", title="error", width=62),
+                                  TableColumn(field="method", title="method (and where it "
+                                                                    "does not hold)", width=482)],
+                         width=900, height=_TABLE_PX, row_height=_HAND_ROW_PX,
+                         stylesheets=[InlineStyleSheet(css=_WRAP_CSS)])
         for table in (metrics, hand):
             _redraw_on_new_data(table)
         main = Tabs(name="views", sizing_mode="stretch_width", tabs=[
             TabPanel(title="Gains", child=column(mag, phase, sizing_mode="stretch_width")),
             TabPanel(title="CMRR", child=column(cmrr, sizing_mode="stretch_width")),
             TabPanel(title="Poles & zeros", child=column(pz, sizing_mode="stretch_width")),
-            TabPanel(title="Numbers", child=row(
-                column(Div(text="<b>Exact results</b>"), metrics),
-                column(Div(text="<b>Hand estimate beside exact</b>"), hand))),
+            TabPanel(title="Numbers", child=column(Div(text="<b>Exact results</b>"), metrics)),
+            TabPanel(title="Hand estimates", child=column(
+                Div(text="<b>Hand estimates beside the exact values</b> <small>(textbook "
+                         "formulas; the method column says where one does not hold)</small>"),
+                hand)),
         ])
         sidebar = column(
             row(*self.kind_selects.values()),
