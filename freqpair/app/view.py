@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
 import tomli_w
 from bokeh.layouts import column, row
 from bokeh.models import (Button, ColumnDataSource, CustomJS, DataTable, Div, FileInput,
@@ -29,12 +30,16 @@ from freqpair.views.explore import (
     with_second_stage,
 )
 from freqpair.views.plots import (
+    GAIN_SERIES,
     PALETTE,
     bode_figure,
     cmrr_figure,
     pin_legend_items,
     pole_zero_figure,
+    set_cmrr_balanced,
+    set_gain_hover,
     set_legend_label,
+    show_legend_item,
 )
 from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
 
@@ -193,9 +198,10 @@ class Explorer:
         phase = bode_figure(grid, "phase", pinned=pins, x_range=mag.x_range, height=210)
         phase.legend.visible = False
         mag.xaxis.axis_label = None
-        balanced = self.data is None or self.data["balanced"]
+        # the balanced CMRR is always drawn (empty for a stage with one output) so a
+        # load switched to resistors shows it; _label_curves shows its legend item
         cmrr = cmrr_figure(grid, self.corner, self.target, self.target_line, pinned=pins,
-                           balanced=balanced, height=480)
+                           balanced=True, height=480)
         self._figures = (mag, phase, cmrr)
         self._label_curves()
         pz = pole_zero_figure(self.pz, height=480)
@@ -517,9 +523,22 @@ class Explorer:
         return out
 
     def _label_curves(self):
+        """Legends and hovers name the curves of the design on screen: the primary gain
+        by its kind, and only the gains and CMRRs it has (e.g. no A_cm-dm and no
+        balanced CMRR with a mirror load)."""
         if self._figures is None or self.data is None:
             return
-        set_legend_label(self._figures[0], "adm", _PRIMARY_LABEL[self.data["primary"]])
+        mag, phase, cmrr = self._figures
+        curves = self.data["curves"]
+        primary = _PRIMARY_LABEL[self.data["primary"]]
+        labels = {p: primary if p == "adm" else label for p, label in GAIN_SERIES}
+        shown = [p for p, _ in GAIN_SERIES if np.isfinite(curves[f"{p}_db"]).any()]
+        for fig, quantity in ((mag, "magnitude"), (phase, "phase")):
+            set_legend_label(fig, "adm", primary)
+            for p, _ in GAIN_SERIES:
+                show_legend_item(fig, p, p in shown)
+            set_gain_hover(fig, quantity, [(p, labels[p]) for p in shown])
+        set_cmrr_balanced(cmrr, bool(np.isfinite(curves["cmrr_db"]).any()))
         self._label_pins()
 
     def _label_pins(self):

@@ -11,7 +11,8 @@ from __future__ import annotations
 __all__ = ["PALETTE", "GAIN_SERIES", "bode_figure", "cmrr_figure", "pole_zero_figure",
            "add_residual_axis", "eng_formatter", "eng_tick_formatter", "eng_ticks",
            "style_figure", "freq_figure", "mark_frequency",
-           "CYCLE", "PIN_STYLES", "pin_legend_items", "set_legend_label"]
+           "CYCLE", "PIN_STYLES", "pin_legend_items", "set_legend_label", "show_legend_item",
+           "set_gain_hover", "set_cmrr_balanced"]
 
 #: freqpair's own colours: deep teal, burnt orange, plum, olive, crimson, amber; the
 #: measurement in slate blue. Keys are the gain names of ``responses.RESPONSE_NAMES``
@@ -150,6 +151,44 @@ def set_legend_label(fig, renderer_name: str, text: str) -> None:
                 item.label = value(text)
 
 
+def show_legend_item(fig, renderer_name: str, shown: bool) -> None:
+    """Show or hide the legend item holding the renderer named ``renderer_name``."""
+    for item in (fig.legend[0].items if fig.legend else []):
+        if any(r.name == renderer_name for r in item.renderers) and item.visible != shown:
+            item.visible = shown
+
+
+def _gain_tips(series, quantity: str) -> list:
+    suffix, unit = ("_db", " dB") if quantity == "magnitude" else ("_deg", "°")
+    return [("frequency", "@f_hz{eng}")] + [(name, f"@{p}{suffix}{{0.00}}{unit}")
+                                            for p, name in series]
+
+
+def _cmrr_tips(balanced: bool) -> list:
+    rows = [("frequency", "@f_hz{eng}"), ("CMRR single-ended", "@cmrr_se_db{0.00} dB")]
+    return rows + ([("CMRR balanced", "@cmrr_db{0.00} dB")] if balanced else [])
+
+
+def set_gain_hover(fig, quantity: str, series) -> None:
+    """Let the hover of a :func:`bode_figure` name ``series`` ((prefix, label) pairs)."""
+    from bokeh.models import HoverTool
+    tips = _gain_tips(series, quantity)
+    for tool in fig.select(dict(type=HoverTool, name="gain_hover")):
+        if tool.tooltips != tips:
+            tool.tooltips = tips
+
+
+def set_cmrr_balanced(fig, shown: bool) -> None:
+    """Show the balanced CMRR of a :func:`cmrr_figure` in its legend and hover, or not
+    (a stage with one output has none; its curve is then empty)."""
+    from bokeh.models import HoverTool
+    show_legend_item(fig, "cmrr", shown)
+    tips = _cmrr_tips(shown)
+    for tool in fig.select(dict(type=HoverTool, name="cmrr_hover")):
+        if tool.tooltips != tips:
+            tool.tooltips = tips
+
+
 def _hide_empty_pins(fig, pinned) -> None:
     for k, src in enumerate(_pin_sources(pinned)):
         empty = not src.data or not len(next(iter(src.data.values()), []))
@@ -211,11 +250,9 @@ def bode_figure(source, quantity: str = "magnitude", series=GAIN_SERIES, pinned=
     for prefix, _ in series:
         _pin_lines(fig, pinned, prefix + suffix, prefix)
     _hide_empty_pins(fig, pinned)
-    unit = " dB" if quantity == "magnitude" else "°"
-    tips = [("frequency", "@f_hz{eng}")] + [(name, f"@{p}{suffix}{{0.00}}{unit}")
-                                            for p, name in series]
-    fig.add_tools(HoverTool(renderers=renderers[:1], tooltips=tips, mode="vline",
-                            formatters={"@f_hz": eng_formatter("Hz")}))
+    fig.add_tools(HoverTool(renderers=renderers[:1], tooltips=_gain_tips(series, quantity),
+                            mode="vline", formatters={"@f_hz": eng_formatter("Hz")},
+                            name="gain_hover"))
     fig.legend.location = "bottom_left"
     style_figure(fig)
     return fig
@@ -267,9 +304,7 @@ def cmrr_figure(source, corner, target=None, target_line=None, pinned=None, bala
                                  legend_label="falls to target", name="target_cross"))
     fmt = {"@f_hz": eng_formatter("Hz")}
     fig.add_tools(HoverTool(renderers=[main], mode="vline", formatters=fmt,
-                            tooltips=[("frequency", "@f_hz{eng}"),
-                                      ("CMRR single-ended", "@cmrr_se_db{0.00} dB"),
-                                      ("CMRR balanced", "@cmrr_db{0.00} dB")]))
+                            tooltips=_cmrr_tips(balanced), name="cmrr_hover"))
     fig.add_tools(HoverTool(renderers=marks, formatters=fmt,
                             tooltips=[("at", "@f_hz{eng}"), ("CMRR", "@cmrr_db{0.00} dB")]))
     fig.legend.location = "bottom_left"
