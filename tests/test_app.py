@@ -566,3 +566,20 @@ def test_legends_and_hovers_name_only_the_curves_of_the_design_on_screen():
     assert ex.design.second_stage is None, ex.message_text
     assert _legend_item(mag, "adm") == ("differential gain A_dm,se (o2)", True)
     assert _hover_names(mag, "gain_hover")[0] == "differential gain A_dm,se (o2)"
+
+
+def test_a_refused_kind_or_slider_value_puts_the_control_back_on_the_design_shown(app):
+    doc, ex = app
+    w(doc, "text:supply.negative").value = "-1.2"       # room for a resistor tail only
+    shown = ex.design
+    w(doc, "kind:tail").value = "cascode"
+    # oracle: DESIGN.md §3a — a cascode tail needs V_BE + 0.3 V = 1 V, the rail leaves 0.5 V
+    assert "starved" in ex.message_text and ex.design is shown
+    assert w(doc, "kind:tail").value == shown.tail.type == "norton"
+    slider = w(doc, "slider:bias.tail_current")
+    before = slider.value
+    slider.value = slider.end                             # dragged to the top, released
+    slider.trigger("value_throttled", before, slider.end)
+    # oracle: DESIGN.md §2 — the largest tail current saturates the pair (V_CE < 0.2 V)
+    assert "saturated" in ex.message_text and ex.design is shown
+    assert slider.value == pytest.approx(before)

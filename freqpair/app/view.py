@@ -282,12 +282,7 @@ class Explorer:
         panels.append(TabPanel(title="Files", child=self._files))
         self.controls.tabs = panels
         self.controls.active = min(active, len(panels) - 1)
-        self._syncing = True
-        try:
-            for section, sel in self.kind_selects.items():
-                sel.value = getattr(self.design, section).type
-        finally:
-            self._syncing = False
+        self._sync_kinds()
 
     def _loop_rows(self, rows):
         """The "Loop" tab: the feedback factor (empty box: no loop) and the second stage,
@@ -336,8 +331,8 @@ class Explorer:
 
     def _slider_callback(self, ev):
         def cb(attr, old, new):
-            if not self._syncing:
-                self.edit(ev.key, ev.from_slider(new))
+            if not self._syncing and not self.edit(ev.key, ev.from_slider(new)):
+                self._sync_controls()     # the slider goes back to the value on screen
         return cb
 
     def _kind_callback(self, section):
@@ -348,10 +343,21 @@ class Explorer:
                 design = switch_kind(self.design, section, new)
             except FreqpairError as exc:
                 self._say(f"{exc} — kept the last good result", bad=True)
-                return
-            if self.apply(design):
+                design = None
+            if design is not None and self.apply(design):
                 self._build_controls()
+            else:
+                self._sync_kinds()        # the selector goes back to the kind on screen
         return cb
+
+    def _sync_kinds(self):
+        """Show the current design's kinds in the kind selectors."""
+        self._syncing = True
+        try:
+            for section, sel in self.kind_selects.items():
+                sel.value = getattr(self.design, section).type
+        finally:
+            self._syncing = False
 
     def _sync_controls(self):
         """Show the current design's values in the text boxes and sliders."""
