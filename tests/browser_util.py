@@ -153,6 +153,14 @@ def click_tab(driver, tabs_name: str, title: str) -> None:
     header.click()
 
 
+def click_button(driver, name: str) -> None:
+    """Click the Button named ``name`` (a real click on its ``<button>``)."""
+    element = wait_until(lambda: driver.execute_script(
+        _LIVE + "const v = live(arguments[0]);"
+        "return v ? v.shadow_el.querySelector('button') : null;", name), timeout=10)
+    element.click()
+
+
 def type_into(driver, input_name: str, text: str) -> None:
     """Type ``text`` into the TextInput named ``input_name`` with keystrokes, then Enter
     (the old text is deleted with Backspace, as a person would)."""
@@ -187,3 +195,28 @@ def table_text(driver, name: str, settle: float = 0.15) -> list[list[str]]:
         scroll = grid["scroll"] + max(grid["height"] - 30, 25)
     driver.execute_script(_SCROLL_JS, name, 0)
     return [rows[k] for k in sorted(rows)]
+
+
+_LEGEND_JS = _LIVE + """
+const fig = live(arguments[0]).model;
+const legend = fig.center.find(m => m.type === 'Legend');
+const view = Bokeh.index.find_one(legend);
+if (!view.shadow_el.querySelector('.bk-grid')) { return null; }   // drawn on the canvas
+return [...view.shadow_el.querySelectorAll('.bk-item')]
+  .filter(el => el.getClientRects().length > 0)
+  .map(el => {
+    const canvas = el.querySelector('canvas');
+    const px = canvas.getContext('2d').getImageData(0, 0, canvas.width, canvas.height).data;
+    let inked = 0;
+    for (let i = 3; i < px.length; i += 4) { if (px[i] > 0) { inked += 1; } }
+    return [el.querySelector('.bk-label').textContent, inked];
+  });
+"""
+
+
+def legend_entries(driver, figure_name: str):
+    """The legend entries a person sees on the figure named ``figure_name``: (label,
+    number of painted pixels of its swatch) per shown item, or None when this Bokeh
+    draws legends on the canvas (no DOM entries to read)."""
+    entries = driver.execute_script(_LEGEND_JS, figure_name)
+    return None if entries is None else [tuple(e) for e in entries]

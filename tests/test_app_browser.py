@@ -372,3 +372,63 @@ def test_pole_zero_axes_write_frequencies_in_engineering_notation(server, tmp_pa
     # oracle: freqpair.format_si, which writes every frequency freqpair prints
     want = [freqpair.format_si(t, "Hz") for t in ticks]
     assert labels == [want, want]      # |Re s|/2π axis and Im s/2π axis
+
+
+@pytest.mark.browser
+def test_legends_show_the_pins_and_gains_of_the_design_typed_in_the_page(tmp_path):
+    from browser_util import click_button, click_tab, legend_entries, type_into
+    from freqpair.app.view import _PRIMARY_LABEL
+    from freqpair.views.explore import design_difference
+    port = free_port()
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", str(TWO_STAGE),
+                             "--port", str(port), "--no-browser"], cwd=ROOT, env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    driver = None
+    pinned = design = freqpair.load_design(TWO_STAGE)
+    seen = []
+    try:
+        assert f"127.0.0.1:{port}" in proc.stdout.readline()
+        driver = make_driver(tmp_path)
+        driver.get(f"http://127.0.0.1:{port}/")
+        wait_for_bokeh(driver)
+        if legend_entries(driver, "gains_figure") is None:
+            pytest.skip("this Bokeh draws legends on the canvas (no entries to read)")
+        click_tab(driver, "controls", "Files")
+        click_button(driver, "pin")
+        click_tab(driver, "controls", "Loop")
+        for text in ("30 pF", "12 pF", "4.7 pF"):     # each edit renames the pin
+            type_into(driver, "text:second_stage.miller_capacitance", text)
+            design = freqpair.replace_value(design, "second_stage.miller_capacitance", text)
+            label = f"pin 1: {design_difference(pinned, design)}"
+            entries = wait_until(lambda: (e := legend_entries(driver, "gains_figure"))
+                                 and e[-1][0] == label and e)
+            time.sleep(0.5)       # a paint that would come, has come
+            seen.append((text, design, label, legend_entries(driver, "gains_figure")))
+        click_tab(driver, "controls", "Files")
+        click_button(driver, "clear_pins")
+        wait_until(lambda: len(legend_entries(driver, "gains_figure")) == 2)
+        time.sleep(0.5)
+        cleared = legend_entries(driver, "gains_figure")
+        ARTIFACTS.mkdir(exist_ok=True)
+        driver.save_screenshot(str(ARTIFACTS / "explorer_legend_after_pins.png"))
+        errors = console_errors(driver)
+    finally:
+        if driver is not None:
+            driver.quit()
+        stop_server(proc)
+    for text, design_, label, entries in seen:
+        # oracle: freqpair.analyze on the same design names the plotted gain (A_total
+        # with a second stage, DESIGN.md §3a); a mirror load has no A_cm-dm to show;
+        # the pin is named by what its design has that the one on screen has not
+        # (design_difference), here the Miller capacitance before the edit: 8 pF
+        assert [name for name, _ in entries] == [
+            _PRIMARY_LABEL[freqpair.analyze(design_).primary],
+            "common-mode gain A_cm,se (o2)", label], text
+        assert label.endswith(freqpair.format_si(pinned.second_stage.miller_capacitance, "F"))
+        # common practice: every legend entry a person sees has its line swatch painted
+        assert all(inked > 0 for _, inked in entries), (text, entries)
+    assert [name for name, _ in cleared] == [
+        _PRIMARY_LABEL["a_total"], "common-mode gain A_cm,se (o2)"]
+    assert all(inked > 0 for _, inked in cleared), cleared
+    assert errors == []

@@ -100,12 +100,34 @@ _WRAP_CSS = """
 .slick-cell { display: flex; align-items: center; }
 """
 
+#: Repaint a legend after one of its items changes (label or visibility). Bokeh 3.7–3.9
+#: rebuild the legend's entries at once, with blank swatch canvases, but paint them
+#: only with the plot's next paint; when that came first (the same server message also
+#: moved the curves) the legend kept blank swatches (measured in DEVELOPERS.md; 3.10
+#: requests the paint itself). The microtask runs after the legend has rebuilt them.
+_REPAINT_LEGEND_JS = """
+Promise.resolve().then(() => {
+  for (const view of Bokeh.index.find(legend)) {
+    if (typeof view.request_paint === "function") { view.request_paint(); }
+  }
+});
+"""
+
 _CSS_HEADER = ("background:#1f2a36;color:#fbf8f3;padding:6px 12px;border-radius:4px;"
                "font-family:sans-serif;")
 
 
 def _empty(columns):
     return {c: [] for c in columns}
+
+
+def _repaint_legends_on_change(fig) -> None:
+    """Make the page repaint ``fig``'s legends whenever one of their items changes."""
+    for legend in fig.legend:
+        code = CustomJS(args={"legend": legend}, code=_REPAINT_LEGEND_JS)
+        for item in legend.items:
+            item.js_on_change("label", code)
+            item.js_on_change("visible", code)
 
 
 def _redraw_on_new_data(table) -> None:
@@ -202,11 +224,14 @@ class Explorer:
         # load switched to resistors shows it; _label_curves shows its legend item
         cmrr = cmrr_figure(grid, self.corner, self.target, self.target_line, pinned=pins,
                            balanced=True, height=480)
+        mag.name, phase.name, cmrr.name = "gains_figure", "phase_figure", "cmrr_figure"
         self._figures = (mag, phase, cmrr)
         self._label_curves()
         pz = pole_zero_figure(self.pz, height=480)
         pz.name = "pole_zero_figure"
         self.measured.add_to(mag, cmrr)
+        for fig in (mag, phase, cmrr):
+            _repaint_legends_on_change(fig)
         self.measured.show(self.data)
         metrics = DataTable(source=self.metrics, name="metrics_table", index_position=None,
                             columns=[TableColumn(field="quantity", title="quantity", width=290),
