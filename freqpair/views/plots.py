@@ -169,11 +169,16 @@ def _cmrr_tips(balanced: bool) -> list:
     return rows + ([("CMRR balanced", "@cmrr_db{0.00} dB")] if balanced else [])
 
 
+def _tools_named(fig, name: str) -> list:
+    """``fig``'s tools named ``name`` (its tool list, not ``fig.select``: that walks
+    every model the figure references, ≈ 30 ms per call on an explorer figure)."""
+    return [tool for tool in fig.tools if tool.name == name]
+
+
 def set_gain_hover(fig, quantity: str, series) -> None:
     """Let the hover of a :func:`bode_figure` name ``series`` ((prefix, label) pairs)."""
-    from bokeh.models import HoverTool
     tips = _gain_tips(series, quantity)
-    for tool in fig.select(dict(type=HoverTool, name="gain_hover")):
+    for tool in _tools_named(fig, "gain_hover"):
         if tool.tooltips != tips:
             tool.tooltips = tips
 
@@ -181,10 +186,9 @@ def set_gain_hover(fig, quantity: str, series) -> None:
 def set_cmrr_balanced(fig, shown: bool) -> None:
     """Show the balanced CMRR of a :func:`cmrr_figure` in its legend and hover, or not
     (a stage with one output has none; its curve is then empty)."""
-    from bokeh.models import HoverTool
     show_legend_item(fig, "cmrr", shown)
     tips = _cmrr_tips(shown)
-    for tool in fig.select(dict(type=HoverTool, name="cmrr_hover")):
+    for tool in _tools_named(fig, "cmrr_hover"):
         if tool.tooltips != tips:
             tool.tooltips = tips
 
