@@ -521,3 +521,65 @@ def test_pins_that_differ_from_the_screen_in_the_same_way_are_told_apart(app):
     # DESIGN.md §3a: a mirror tail has no `capacitance` key, so both pins differ from the
     # screen by the tail kind; each is then named by its own C_tail too
     assert ex.pin_labels() == ["pin 1: tail norton, C_tail 2 pF", "pin 2: tail norton, C_tail 5 pF"]
+
+
+def _legend_item(fig, renderer_name):
+    """(label, shown) of the legend item holding the renderer ``renderer_name``."""
+    items = [i for i in fig.legend[0].items if any(r.name == renderer_name for r in i.renderers)]
+    assert len(items) == 1, renderer_name
+    return items[0].label.value, items[0].visible
+
+
+def _hover_names(fig, tool_name):
+    from bokeh.models import HoverTool
+    (tool,) = fig.select(dict(type=HoverTool, name=tool_name))
+    return [name for name, _ in tool.tooltips][1:]       # after "frequency"
+
+
+def test_legends_and_hovers_name_only_the_curves_of_the_design_on_screen():
+    doc = Document()
+    ex = make_doc(doc, str(ROOT / "examples" / "two_stage_miller_loop.toml"))
+    mag, phase, cmrr = ex._figures
+    # oracle: DESIGN.md §3a — a mirror load has one output: no A_cm-dm, no balanced CMRR;
+    # with a second stage the plotted gain is A_total
+    assert ex.design.load.type == "mirror" and ex.design.second_stage is not None
+    assert _legend_item(mag, "adm") == ("overall gain A_total (second stage out)", True)
+    assert _legend_item(mag, "acm_dm")[1] is False and _legend_item(cmrr, "cmrr")[1] is False
+    assert _hover_names(mag, "gain_hover") == ["overall gain A_total (second stage out)",
+                                               "common-mode gain A_cm,se (o2)"]
+    assert _hover_names(cmrr, "cmrr_hover") == ["CMRR single-ended"]
+    # a resistor load (two outputs, DESIGN.md §2, mismatched so A_cm-dm ≠ 0): the
+    # balanced CMRR is drawn, named and hovered; switching back hides it again
+    w(doc, "kind:load").value = "resistor"
+    w(doc, "text:mismatch.load").value = "0.02"
+    assert ex.design.load.type == "resistor", ex.message_text
+    assert np.isfinite(ex.curves.data["cmrr_db"]).all()
+    assert "cmrr" in [r.name for r in cmrr.renderers]
+    assert _legend_item(cmrr, "cmrr") == ("CMRR balanced", True)
+    assert _legend_item(mag, "acm_dm")[1] is True
+    assert _hover_names(cmrr, "cmrr_hover") == ["CMRR single-ended", "CMRR balanced"]
+    assert "common-mode to differential A_cm-dm" in _hover_names(phase, "gain_hover")
+    w(doc, "kind:load").value = "mirror"
+    assert _legend_item(cmrr, "cmrr")[1] is False and _legend_item(mag, "acm_dm")[1] is False
+    # without the second stage the plotted gain is A_dm,se at o2 (DESIGN.md §3a)
+    ex.toggle_second_stage()
+    assert ex.design.second_stage is None, ex.message_text
+    assert _legend_item(mag, "adm") == ("differential gain A_dm,se (o2)", True)
+    assert _hover_names(mag, "gain_hover")[0] == "differential gain A_dm,se (o2)"
+
+
+def test_a_refused_kind_or_slider_value_puts_the_control_back_on_the_design_shown(app):
+    doc, ex = app
+    w(doc, "text:supply.negative").value = "-1.2"       # room for a resistor tail only
+    shown = ex.design
+    w(doc, "kind:tail").value = "cascode"
+    # oracle: DESIGN.md §3a — a cascode tail needs V_BE + 0.3 V = 1 V, the rail leaves 0.5 V
+    assert "starved" in ex.message_text and ex.design is shown
+    assert w(doc, "kind:tail").value == shown.tail.type == "norton"
+    slider = w(doc, "slider:bias.tail_current")
+    before = slider.value
+    slider.value = slider.end                             # dragged to the top, released
+    slider.trigger("value_throttled", before, slider.end)
+    # oracle: DESIGN.md §2 — the largest tail current saturates the pair (V_CE < 0.2 V)
+    assert "saturated" in ex.message_text and ex.design is shown
+    assert slider.value == pytest.approx(before)

@@ -8,10 +8,12 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
 import tomli_w
 from bokeh.layouts import column, row
 from bokeh.models import (Button, ColumnDataSource, CustomJS, DataTable, Div, FileInput,
-                          Select, Slider, TableColumn, TabPanel, Tabs, TextInput)
+                          InlineStyleSheet, Select, Slider, TableColumn, TabPanel, Tabs,
+                          TextInput)
 
 from freqpair.design.files import BUILTIN_EXAMPLE, design_from_text, load_design
 from freqpair.design.schema import design_to_dict, parse_design
@@ -28,12 +30,16 @@ from freqpair.views.explore import (
     with_second_stage,
 )
 from freqpair.views.plots import (
+    GAIN_SERIES,
     PALETTE,
     bode_figure,
     cmrr_figure,
     pin_legend_items,
     pole_zero_figure,
+    set_cmrr_balanced,
+    set_gain_hover,
     set_legend_label,
+    show_legend_item,
 )
 from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
 
@@ -66,12 +72,67 @@ document.body.appendChild(a); a.click(); a.remove();
 setTimeout(() => URL.revokeObjectURL(url), 1000);
 """
 
+#: Redraw a DataTable's cells when its source gets new data. Bokeh 3.9's table view
+#: redraws only when the table's CDSView changes, and replacing ``source.data``
+#: with the same number of rows leaves the view's indices equal, so the page kept
+#: the old cells (3.4–3.8 and 3.10 redraw; measured in DEVELOPERS.md). This calls
+#: the table view's own ``updateGrid`` — what 3.10 connects to the source itself —
+#: after the whole server message is applied (a microtask), keeping the scroll
+#: position, sorting and column widths. ``rerender`` is the fallback should the
+#: method ever be missing.
+_REDRAW_TABLE_JS = """
+Promise.resolve().then(() => {
+  for (const view of Bokeh.index.find(table)) {
+    if (typeof view.updateGrid === "function") { view.updateGrid(); }
+    else if (typeof view.rerender === "function") { view.rerender(); }
+  }
+});
+"""
+
+#: Table heights: the Numbers and Hand estimates views fit a 1366×768 screen (the
+#: grid scrolls inside when a design has more rows).
+_TABLE_PX = 470
+#: Hand-estimate rows hold up to three lines of the wrapped method text.
+_HAND_ROW_PX = 42
+#: Wrap the hand table's quantity and method cells (the grid's cells do not wrap).
+_WRAP_CSS = """
+.slick-cell.l0, .slick-cell.l4 { white-space: normal; line-height: 1.15; text-overflow: clip; }
+.slick-cell { display: flex; align-items: center; }
+"""
+
+#: Repaint a legend after one of its items changes (label or visibility). Bokeh 3.7–3.9
+#: rebuild the legend's entries at once, with blank swatch canvases, but paint them
+#: only with the plot's next paint; when that came first (the same server message also
+#: moved the curves) the legend kept blank swatches (measured in DEVELOPERS.md; 3.10
+#: requests the paint itself). The microtask runs after the legend has rebuilt them.
+_REPAINT_LEGEND_JS = """
+Promise.resolve().then(() => {
+  for (const view of Bokeh.index.find(legend)) {
+    if (typeof view.request_paint === "function") { view.request_paint(); }
+  }
+});
+"""
+
 _CSS_HEADER = ("background:#1f2a36;color:#fbf8f3;padding:6px 12px;border-radius:4px;"
                "font-family:sans-serif;")
 
 
 def _empty(columns):
     return {c: [] for c in columns}
+
+
+def _repaint_legends_on_change(fig) -> None:
+    """Make the page repaint ``fig``'s legends whenever one of their items changes."""
+    for legend in fig.legend:
+        code = CustomJS(args={"legend": legend}, code=_REPAINT_LEGEND_JS)
+        for item in legend.items:
+            item.js_on_change("label", code)
+            item.js_on_change("visible", code)
+
+
+def _redraw_on_new_data(table) -> None:
+    """Make the page redraw ``table``'s cells whenever its source's data is replaced."""
+    table.source.js_on_change("data", CustomJS(args={"table": table}, code=_REDRAW_TABLE_JS))
 
 
 @dataclass(frozen=True)
@@ -159,32 +220,43 @@ class Explorer:
         phase = bode_figure(grid, "phase", pinned=pins, x_range=mag.x_range, height=210)
         phase.legend.visible = False
         mag.xaxis.axis_label = None
-        balanced = self.data is None or self.data["balanced"]
+        # the balanced CMRR is always drawn (empty for a stage with one output) so a
+        # load switched to resistors shows it; _label_curves shows its legend item
         cmrr = cmrr_figure(grid, self.corner, self.target, self.target_line, pinned=pins,
-                           balanced=balanced, height=480)
+                           balanced=True, height=480)
+        mag.name, phase.name, cmrr.name = "gains_figure", "phase_figure", "cmrr_figure"
         self._figures = (mag, phase, cmrr)
         self._label_curves()
         pz = pole_zero_figure(self.pz, height=480)
+        pz.name = "pole_zero_figure"
         self.measured.add_to(mag, cmrr)
+        for fig in (mag, phase, cmrr):
+            _repaint_legends_on_change(fig)
         self.measured.show(self.data)
         metrics = DataTable(source=self.metrics, name="metrics_table", index_position=None,
-                            columns=[TableColumn(field="quantity", title="quantity", width=260),
-                                     TableColumn(field="value", title="value", width=160)],
-                            width=440, height=520)
+                            columns=[TableColumn(field="quantity", title="quantity", width=290),
+                                     TableColumn(field="value", title="value", width=230)],
+                            width=520, height=_TABLE_PX)
         hand = DataTable(source=self.hand, name="hand_table", index_position=None,
-                         columns=[TableColumn(field="quantity", title="quantity", width=170),
-                                  TableColumn(field="exact", title="exact", width=80),
-                                  TableColumn(field="approx", title="by hand", width=80),
-                                  TableColumn(field="error", title="error", width=60),
-                                  TableColumn(field="method", title="method", width=200)],
-                         width=470, height=520)
+                         columns=[TableColumn(field="quantity", title="quantity", width=200),
+                                  TableColumn(field="exact", title="exact", width=78),
+                                  TableColumn(field="approx", title="by hand", width=78),
+                                  TableColumn(field="error", title="error", width=62),
+                                  TableColumn(field="method", title="method (and where it "
+                                                                    "does not hold)", width=482)],
+                         width=900, height=_TABLE_PX, row_height=_HAND_ROW_PX,
+                         stylesheets=[InlineStyleSheet(css=_WRAP_CSS)])
+        for table in (metrics, hand):
+            _redraw_on_new_data(table)
         main = Tabs(name="views", sizing_mode="stretch_width", tabs=[
             TabPanel(title="Gains", child=column(mag, phase, sizing_mode="stretch_width")),
             TabPanel(title="CMRR", child=column(cmrr, sizing_mode="stretch_width")),
             TabPanel(title="Poles & zeros", child=column(pz, sizing_mode="stretch_width")),
-            TabPanel(title="Numbers", child=row(
-                column(Div(text="<b>Exact results</b>"), metrics),
-                column(Div(text="<b>Hand estimate beside exact</b>"), hand))),
+            TabPanel(title="Numbers", child=column(Div(text="<b>Exact results</b>"), metrics)),
+            TabPanel(title="Hand estimates", child=column(
+                Div(text="<b>Hand estimates beside the exact values</b> <small>(textbook "
+                         "formulas; the method column says where one does not hold)</small>"),
+                hand)),
         ])
         sidebar = column(
             row(*self.kind_selects.values()),
@@ -235,12 +307,7 @@ class Explorer:
         panels.append(TabPanel(title="Files", child=self._files))
         self.controls.tabs = panels
         self.controls.active = min(active, len(panels) - 1)
-        self._syncing = True
-        try:
-            for section, sel in self.kind_selects.items():
-                sel.value = getattr(self.design, section).type
-        finally:
-            self._syncing = False
+        self._sync_kinds()
 
     def _loop_rows(self, rows):
         """The "Loop" tab: the feedback factor (empty box: no loop) and the second stage,
@@ -289,8 +356,8 @@ class Explorer:
 
     def _slider_callback(self, ev):
         def cb(attr, old, new):
-            if not self._syncing:
-                self.edit(ev.key, ev.from_slider(new))
+            if not self._syncing and not self.edit(ev.key, ev.from_slider(new)):
+                self._sync_controls()     # the slider goes back to the value on screen
         return cb
 
     def _kind_callback(self, section):
@@ -301,10 +368,21 @@ class Explorer:
                 design = switch_kind(self.design, section, new)
             except FreqpairError as exc:
                 self._say(f"{exc} — kept the last good result", bad=True)
-                return
-            if self.apply(design):
+                design = None
+            if design is not None and self.apply(design):
                 self._build_controls()
+            else:
+                self._sync_kinds()        # the selector goes back to the kind on screen
         return cb
+
+    def _sync_kinds(self):
+        """Show the current design's kinds in the kind selectors."""
+        self._syncing = True
+        try:
+            for section, sel in self.kind_selects.items():
+                sel.value = getattr(self.design, section).type
+        finally:
+            self._syncing = False
 
     def _sync_controls(self):
         """Show the current design's values in the text boxes and sliders."""
@@ -476,9 +554,22 @@ class Explorer:
         return out
 
     def _label_curves(self):
+        """Legends and hovers name the curves of the design on screen: the primary gain
+        by its kind, and only the gains and CMRRs it has (e.g. no A_cm-dm and no
+        balanced CMRR with a mirror load)."""
         if self._figures is None or self.data is None:
             return
-        set_legend_label(self._figures[0], "adm", _PRIMARY_LABEL[self.data["primary"]])
+        mag, phase, cmrr = self._figures
+        curves = self.data["curves"]
+        primary = _PRIMARY_LABEL[self.data["primary"]]
+        labels = {p: primary if p == "adm" else label for p, label in GAIN_SERIES}
+        shown = [p for p, _ in GAIN_SERIES if np.isfinite(curves[f"{p}_db"]).any()]
+        for fig, quantity in ((mag, "magnitude"), (phase, "phase")):
+            set_legend_label(fig, "adm", primary)
+            for p, _ in GAIN_SERIES:
+                show_legend_item(fig, p, p in shown)
+            set_gain_hover(fig, quantity, [(p, labels[p]) for p in shown])
+        set_cmrr_balanced(cmrr, bool(np.isfinite(curves["cmrr_db"]).any()))
         self._label_pins()
 
     def _label_pins(self):

@@ -22,6 +22,7 @@ from freqpair.analysis.loop import loop_analysis
 from freqpair.studies.measured import MeasurementError, overlay
 from freqpair.analysis.crossings import db, lowest_crossing
 from freqpair.analysis.poles import response_zpk
+from freqpair.analysis.summary import format_metric
 from freqpair.design.quantities import format_si
 from freqpair.analysis.responses import ZERO_GAIN_RATIO
 
@@ -436,17 +437,17 @@ def _loop_rows(analysis, loop) -> list[tuple[str, str]]:
     if loop is None:
         return [("loop margins", "none (the differential gain is zero)")]
 
-    def opt(v, fmt, none="no crossing"):
-        return none if v is None or not math.isfinite(v) else fmt(v)
+    def opt(key, v, none="no crossing"):   # numbers as the reports write them
+        return none if v is None or not math.isfinite(v) else format_metric(key, v)
 
     return [
-        ("loop gain at DC", f"{loop.dc_loop_gain_db:.2f} dB"),
-        ("phase margin", opt(loop.phase_margin_deg, lambda v: f"{v:.1f}°")),
-        ("gain margin", opt(loop.gain_margin_db, lambda v: f"{v:.1f} dB")),
-        ("loop crossover", opt(loop.crossover_hz, lambda v: format_si(v, "Hz"))),
-        ("closed-loop −3 dB frequency", opt(loop.closed_loop_f3db_hz,
-                                            lambda v: format_si(v, "Hz"), "none")),
-        ("closed-loop peaking", f"{loop.peaking_db:.2f} dB"),
+        ("loop gain at DC", opt("dc_loop_gain_db", loop.dc_loop_gain_db, "—")),
+        ("phase margin", opt("phase_margin_deg", loop.phase_margin_deg)),
+        ("gain margin", opt("gain_margin_db", loop.gain_margin_db)),
+        ("loop crossover", opt("crossover_hz", loop.crossover_hz)),
+        ("closed-loop −3 dB frequency", opt("closed_loop_f3db_hz", loop.closed_loop_f3db_hz,
+                                            "none")),
+        ("closed-loop peaking", opt("peaking_db", loop.peaking_db, "—")),
         ("closed loop stable", "yes" if loop.closed_loop_stable else "NO (right half-plane "
                                                                      "poles)"),
     ]

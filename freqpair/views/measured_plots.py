@@ -60,6 +60,7 @@ def overlay_figure(overlay, quantity: str = "magnitude", *, width: int = 720,
     from bokeh.models import ColumnDataSource, HoverTool, LinearAxis, Range1d
     from bokeh.plotting import figure
 
+    from freqpair.views.plots import eng_ticks
     data = overlay_columns(overlay, quantity)
     unit = "dB" if quantity == "magnitude" else "deg"
     source = ColumnDataSource(data, name="overlay")
@@ -74,8 +75,9 @@ def overlay_figure(overlay, quantity: str = "magnitude", *, width: int = 720,
     fig = figure(title=f"{overlay.label}: measured and model ({quantity})",
                  x_axis_type="log", x_range=Range1d(lo, hi),
                  y_range=Range1d(v_lo - pad, v_hi + pad),
-                 width=width, height=height, x_axis_label="frequency [Hz]",
+                 width=width, height=height, x_axis_label="frequency",
                  y_axis_label=f"{quantity} [{unit}]", tools="pan,box_zoom,wheel_zoom,reset,save")
+    eng_ticks(fig.xaxis, "Hz")
     fig.extra_y_ranges = {"residual": Range1d(-res_span, res_span)}
     fig.add_layout(LinearAxis(y_range_name="residual",
                               axis_label=f"residual, measured − model [{unit}]"), "right")

@@ -9,8 +9,10 @@ colours of the renderers it finds by name).
 from __future__ import annotations
 
 __all__ = ["PALETTE", "GAIN_SERIES", "bode_figure", "cmrr_figure", "pole_zero_figure",
-           "add_residual_axis", "eng_formatter", "style_figure", "freq_figure", "mark_frequency",
-           "CYCLE", "PIN_STYLES", "pin_legend_items", "set_legend_label"]
+           "add_residual_axis", "eng_formatter", "eng_tick_formatter", "eng_ticks",
+           "style_figure", "freq_figure", "mark_frequency",
+           "CYCLE", "PIN_STYLES", "pin_legend_items", "set_legend_label", "show_legend_item",
+           "set_gain_hover", "set_cmrr_balanced"]
 
 #: freqpair's own colours: deep teal, burnt orange, plum, olive, crimson, amber; the
 #: measurement in slate blue. Keys are the gain names of ``responses.RESPONSE_NAMES``
@@ -35,16 +37,18 @@ GAIN_SERIES = (("adm", "differential gain A_dm"),
                ("acm_se", "common-mode gain A_cm,se (o2)"),
                ("acm_dm", "common-mode to differential A_cm-dm"))
 
-_ENG_JS = """
-const v = value;
+#: Engineering notation in JavaScript: ``v`` → "1.5 kHz" (4 significant digits, SI
+#: prefix, ``UNIT`` appended), as :func:`freqpair.design.quantities.format_si` writes it.
+_ENG_BODY = """
 if (v == null || !isFinite(v)) { return "—"; }
 if (v === 0) { return "0 " + UNIT; }
 let e = Math.floor(Math.log10(Math.abs(v)) / 3) * 3;
 e = Math.max(-18, Math.min(15, e));
+let s = (v / Math.pow(10, e)).toPrecision(4);
+if (Math.abs(Number(s)) >= 1000 && e < 15) { e += 3; s = (v / Math.pow(10, e)).toPrecision(4); }
 const p = {"-18": "a", "-15": "f", "-12": "p", "-9": "n", "-6": "µ", "-3": "m", "0": "",
            "3": "k", "6": "M", "9": "G", "12": "T", "15": "P"}[String(e)];
-let s = (v / Math.pow(10, e)).toPrecision(4);
-if (s.indexOf(".") >= 0) { s = s.replace(/0+$/, "").replace(/\\.$/, ""); }
+if (s.indexOf("e") < 0 && s.indexOf(".") >= 0) { s = s.replace(/0+$/, "").replace(/\\.$/, ""); }
 return s + " " + p + UNIT;
 """
 
@@ -52,7 +56,22 @@ return s + " " + p + UNIT;
 def eng_formatter(unit: str):
     """A hover formatter showing a number in engineering notation with ``unit``."""
     from bokeh.models import CustomJSHover
-    return CustomJSHover(code=_ENG_JS.replace("UNIT", repr(unit)))
+    return CustomJSHover(code="const v = value;" + _ENG_BODY.replace("UNIT", repr(unit)))
+
+
+def eng_tick_formatter(unit: str):
+    """An axis tick formatter writing ticks in engineering notation with ``unit``
+    ("100 kHz", "−50 MHz") — the notation of every number freqpair prints."""
+    from bokeh.models import CustomJSTickFormatter
+    return CustomJSTickFormatter(code="const v = tick;" + _ENG_BODY.replace("UNIT", repr(unit)))
+
+
+def eng_ticks(axis, unit: str = "Hz") -> None:
+    """Give ``axis`` (an axis or a splattable list of axes) engineering-notation tick labels
+    with ``unit``; labels that would overlap are left out."""
+    from bokeh.models import NoOverlap
+    axis.formatter = eng_tick_formatter(unit)
+    axis.major_label_policy = NoOverlap()
 
 
 def style_figure(fig) -> None:
@@ -132,6 +151,48 @@ def set_legend_label(fig, renderer_name: str, text: str) -> None:
                 item.label = value(text)
 
 
+def show_legend_item(fig, renderer_name: str, shown: bool) -> None:
+    """Show or hide the legend item holding the renderer named ``renderer_name``."""
+    for item in (fig.legend[0].items if fig.legend else []):
+        if any(r.name == renderer_name for r in item.renderers) and item.visible != shown:
+            item.visible = shown
+
+
+def _gain_tips(series, quantity: str) -> list:
+    suffix, unit = ("_db", " dB") if quantity == "magnitude" else ("_deg", "°")
+    return [("frequency", "@f_hz{eng}")] + [(name, f"@{p}{suffix}{{0.00}}{unit}")
+                                            for p, name in series]
+
+
+def _cmrr_tips(balanced: bool) -> list:
+    rows = [("frequency", "@f_hz{eng}"), ("CMRR single-ended", "@cmrr_se_db{0.00} dB")]
+    return rows + ([("CMRR balanced", "@cmrr_db{0.00} dB")] if balanced else [])
+
+
+def _tools_named(fig, name: str) -> list:
+    """``fig``'s tools named ``name`` (its tool list, not ``fig.select``: that walks
+    every model the figure references, ≈ 30 ms per call on an explorer figure)."""
+    return [tool for tool in fig.tools if tool.name == name]
+
+
+def set_gain_hover(fig, quantity: str, series) -> None:
+    """Let the hover of a :func:`bode_figure` name ``series`` ((prefix, label) pairs)."""
+    tips = _gain_tips(series, quantity)
+    for tool in _tools_named(fig, "gain_hover"):
+        if tool.tooltips != tips:
+            tool.tooltips = tips
+
+
+def set_cmrr_balanced(fig, shown: bool) -> None:
+    """Show the balanced CMRR of a :func:`cmrr_figure` in its legend and hover, or not
+    (a stage with one output has none; its curve is then empty)."""
+    show_legend_item(fig, "cmrr", shown)
+    tips = _cmrr_tips(shown)
+    for tool in _tools_named(fig, "cmrr_hover"):
+        if tool.tooltips != tips:
+            tool.tooltips = tips
+
+
 def _hide_empty_pins(fig, pinned) -> None:
     for k, src in enumerate(_pin_sources(pinned)):
         empty = not src.data or not len(next(iter(src.data.values()), []))
@@ -146,7 +207,8 @@ def _freq_figure(title, y_label, x_range=None, **kw):
     if x_range is not None:
         args["x_range"] = x_range
     fig = figure(**args, **kw)
-    fig.xaxis.axis_label = "frequency [Hz]"
+    fig.xaxis.axis_label = "frequency"
+    eng_ticks(fig.xaxis, "Hz")
     fig.yaxis.axis_label = y_label
     return fig
 
@@ -192,11 +254,9 @@ def bode_figure(source, quantity: str = "magnitude", series=GAIN_SERIES, pinned=
     for prefix, _ in series:
         _pin_lines(fig, pinned, prefix + suffix, prefix)
     _hide_empty_pins(fig, pinned)
-    unit = " dB" if quantity == "magnitude" else "°"
-    tips = [("frequency", "@f_hz{eng}")] + [(name, f"@{p}{suffix}{{0.00}}{unit}")
-                                            for p, name in series]
-    fig.add_tools(HoverTool(renderers=renderers[:1], tooltips=tips, mode="vline",
-                            formatters={"@f_hz": eng_formatter("Hz")}))
+    fig.add_tools(HoverTool(renderers=renderers[:1], tooltips=_gain_tips(series, quantity),
+                            mode="vline", formatters={"@f_hz": eng_formatter("Hz")},
+                            name="gain_hover"))
     fig.legend.location = "bottom_left"
     style_figure(fig)
     return fig
@@ -248,9 +308,7 @@ def cmrr_figure(source, corner, target=None, target_line=None, pinned=None, bala
                                  legend_label="falls to target", name="target_cross"))
     fmt = {"@f_hz": eng_formatter("Hz")}
     fig.add_tools(HoverTool(renderers=[main], mode="vline", formatters=fmt,
-                            tooltips=[("frequency", "@f_hz{eng}"),
-                                      ("CMRR single-ended", "@cmrr_se_db{0.00} dB"),
-                                      ("CMRR balanced", "@cmrr_db{0.00} dB")]))
+                            tooltips=_cmrr_tips(balanced), name="cmrr_hover"))
     fig.add_tools(HoverTool(renderers=marks, formatters=fmt,
                             tooltips=[("at", "@f_hz{eng}"), ("CMRR", "@cmrr_db{0.00} dB")]))
     fig.legend.location = "bottom_left"
@@ -277,8 +335,10 @@ def pole_zero_figure(source, title: str = "Poles (×) and zeros (○)", height: 
     from bokeh.transform import factor_cmap
     fig = figure(x_axis_type="log", title=title, height=height, sizing_mode="stretch_width",
                  tools="pan,wheel_zoom,box_zoom,reset,save", active_scroll=None)
-    fig.xaxis.axis_label = "|real part| / 2π [Hz]  (decay rate)"
-    fig.yaxis.axis_label = "imaginary part / 2π [Hz]"
+    fig.xaxis.axis_label = "|real part| / 2π  (decay rate)"
+    fig.yaxis.axis_label = "imaginary part / 2π"
+    eng_ticks(fig.xaxis, "Hz")
+    eng_ticks(fig.yaxis, "Hz")
     cmap = factor_cmap("half_plane", [PALETTE["adm"], PALETTE["target"]], ["left", "right"])
     poles = fig.scatter("abs_re_hz", "im_hz", source=source, marker="x", size=14, line_width=2.5,
                         color=cmap, view=CDSView(filter=GroupFilter(column_name="kind",
