@@ -10,7 +10,10 @@ sample's pencil is
     G + s·C = (G0 + s·C0) + U · diag(d(s)) · Vᵀ,   d_k(s) = ΔG_k + s·ΔC_k
 
 with one column of U, V per distinct pattern (R and C on the same node pair
-share one). The nominal pencil is reduced once (QZ, as in
+share one; a MOS device's g_mb, which scales with its g_m, joins the g_m's
+column: ``v = v_gs + (g_mb/g_m)·v_bs``). Elements are found by label, kind and
+nodes, the stage's own first (a second stage's C_L is also labelled "CL2").
+The nominal pencil is reduced once (QZ, as in
 :class:`~freqpair.circuit.network.FrequencySolver`) for the right-hand sides ``[B, U]``
 and the outputs ``[L; Vᵀ]``, which gives at each frequency
 
@@ -52,7 +55,7 @@ import numpy as np
 from freqpair.design.errors import DesignError
 from freqpair.circuit.network import GROUND, FrequencySolver
 from freqpair.analysis.responses import ZERO_GAIN_RATIO
-from freqpair.circuit.stage import build_stage
+from freqpair.circuit.stage import TAIL_NODE, build_stage
 
 __all__ = ["BatchEvaluator", "BATCH_KEYS", "BatchGains", "CURVES", "BALANCED_CURVES",
            "excitations", "single_threaded_blas"]
@@ -163,14 +166,17 @@ class BatchEvaluator:
         G, C, B = net.matrices()
         self.n = G.shape[0]
         self._index = {name: i for i, name in enumerate(net.node_names)}
-        self._by_label = {e[1]: e for e in net.elements}
-        # element label -> (key, value function of the key's sampled values)
+        # element label -> (element, key, value function of the key's sampled values)
         self._rules = self._element_rules()
         patterns: list[tuple[bytes, np.ndarray, np.ndarray]] = []
         self._slots: list[tuple[int, str, float, object]] = []   # (col, kind, nominal, fn)
-        for label, (key, fn) in self._rules.items():
-            kind, _, nodes, nominal = self._by_label[label]
+        for label, (element, key, fn, partners) in self._rules.items():
+            kind, _, nodes, nominal = element
             u, v = self._vectors(kind, nodes)
+            for p_kind, _, p_nodes, p_value in partners:
+                # a MOS device's g_mb scales with its g_m (DESIGN.md §7b) and drives the
+                # same output: one column, v = (v_gs + g_mb/g_m · v_bs) control vector
+                v = v + (p_value / nominal) * self._vectors(p_kind, p_nodes)[1]
             tag = u.tobytes() + v.tobytes()
             col = next((i for i, (t, _, _) in enumerate(patterns) if t == tag), None)
             if col is None:
@@ -218,40 +224,61 @@ class BatchEvaluator:
         u = e(a) - e(b)
         return u, u.copy()
 
+    def _element(self, kind, label, first_nodes=()):
+        """The stage's own element ``label`` of ``kind`` whose nodes begin with
+        ``first_nodes``, or None (absent: a zero value is not stamped).
+
+        The first one stamped: the stage stamps its own elements before a second
+        stage's and the added ones, which may carry the same label (a resistor-
+        loaded stage's C_L at o2 and the second stage's at ``out`` are both "CL2").
+        """
+        n = len(first_nodes)
+        for e in self.stage.network.elements:
+            if e[0] == kind and e[1] == label and tuple(e[2][:n]) == tuple(first_nodes):
+                return e
+        return None
+
     def _element_rules(self) -> dict:
         d = self.design
         st = self.stage
-        rules = {}
+        rules = {}          # label -> (kind, first nodes, key, value function)
         for key in self.keys:
             if key == "mismatch.load":
                 if d.load.type == "resistor":
                     r = d.load.resistance
-                    rules["RL1"] = (key, lambda x, r=r: 1.0 / (r * _split(x, 1)))
-                    rules["RL2"] = (key, lambda x, r=r: 1.0 / (r * _split(x, 2)))
+                    rules["RL1"] = ("G", ("o1",), key, lambda x, r=r: 1.0 / (r * _split(x, 1)))
+                    rules["RL2"] = ("G", ("o2",), key, lambda x, r=r: 1.0 / (r * _split(x, 2)))
                 else:
                     g = st.load_small_signal.gm
-                    rules["M3.gm"] = (key, lambda x, g=g: g * _split(x, 1))
-                    rules["M4.gm"] = (key, lambda x, g=g: g * _split(x, 2))
+                    rules["M3.gm"] = ("VCCS", (), key, lambda x, g=g: g * _split(x, 1))
+                    rules["M4.gm"] = ("VCCS", (), key, lambda x, g=g: g * _split(x, 2))
             elif key == "mismatch.gm":
                 g = st.operating_point.small_signal.gm
-                rules["Q1.gm"] = (key, lambda x, g=g: g * _split(x, 1))
-                rules["Q2.gm"] = (key, lambda x, g=g: g * _split(x, 2))
+                rules["Q1.gm"] = ("VCCS", (), key, lambda x, g=g: g * _split(x, 1))
+                rules["Q2.gm"] = ("VCCS", (), key, lambda x, g=g: g * _split(x, 2))
             elif key in ("tail.resistance", "tail.capacitance"):
                 if d.tail.type != "norton":
                     raise DesignError(f"{key}: only a norton tail has this value "
                                       f"(tail.type = {d.tail.type!r})")
                 if key == "tail.resistance":
-                    rules["Rtail"] = (key, lambda x: 1.0 / x)
+                    rules["Rtail"] = ("G", (TAIL_NODE,), key, lambda x: 1.0 / x)
                 else:
-                    rules["Ctail"] = (key, lambda x: x)
+                    rules["Ctail"] = ("C", (TAIL_NODE,), key, lambda x: x)
             elif key == "load.capacitance":
-                labels = ("CL1", "CL2") if d.load.type == "resistor" else ("CL",)
-                for lab in labels:
-                    rules[lab] = (key, lambda x: x)
+                at = (("CL1", "o1"), ("CL2", "o2")) if d.load.type == "resistor" else \
+                    (("CL", "o2"),)
+                for lab, node in at:
+                    rules[lab] = ("C", (node, GROUND), key, lambda x: x)
+        found = {lab: self._element(kind, lab, nodes)
+                 for lab, (kind, nodes, _, _) in rules.items()}
+        # a device's body transconductance follows its g_m (the same mismatch factor)
+        partners = {lab: [e for e in (self._element("VCCS", lab[:-3] + ".gmb"),) if e]
+                    if lab.endswith(".gm") else [] for lab in rules}
         # elements absent from the nominal network (a zero capacitance) carry no rule;
         # a relative spread around zero keeps them zero (checked in deltas()).
-        self._absent = {lab: key for lab, (key, _) in rules.items() if lab not in self._by_label}
-        return {lab: rule for lab, rule in rules.items() if lab in self._by_label}
+        self._absent = {lab: rules[lab][2] for lab, e in found.items() if e is None}
+        return {lab: (found[lab], key, fn, partners[lab]) for lab, (_, _, key, fn)
+                in rules.items() if found[lab] is not None}
 
     # ------------------------------------------------------------ per sample
     def deltas(self, values: dict[str, np.ndarray]):
