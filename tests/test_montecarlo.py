@@ -645,3 +645,47 @@ def test_psrr_band_does_not_depend_on_the_chunk_size():
     assert json.dumps(a.to_json()) == json.dumps(b.to_json())
     for name in PSRR:
         assert a.summary.curves[name] == b.summary.curves[name]
+
+
+def test_cli_metric_psrr_neg_prints_the_band_in_json_text_and_csv(tmp_path):
+    # oracle: the library's run with curves=("psrr_neg_db",) on the same seed and grid
+    # (the CLI's --metric is an alias of --bands psrr_neg_db)
+    path = "examples/two_stage_miller_loop.toml"
+    base = [sys.executable, "-m", "freqpair.cli", "montecarlo", path, "-n", "400", "--seed", "3",
+            "--points", "15", "--spread", "mismatch.load=normal:1%",
+            "--spread", "tail.resistance=normal:10%", "--metric", "psrr_neg"]
+    out = subprocess.run(base + ["--json", "--csv", str(tmp_path / "b.csv")],
+                         capture_output=True, text=True, cwd=ROOT)
+    assert out.returncode == 0 and out.stderr == "", out.stderr
+    obj = json.loads(out.stdout)
+    assert set(obj["band_psrr_neg_db"]) == {"p5", "p50", "p95"}
+    assert len(obj["band_psrr_neg_db"]["p50"]) == 15 and "band_cmrr_se_db" not in obj
+    d = freqpair.load_design(ROOT / path)
+    spec = MonteCarloSpec.from_dict({"mismatch.load": "normal:1%", "tail.resistance": "normal:10%"})
+    lib = run_montecarlo(d, spec, 400, seed=3, f_hz=np.logspace(1, 10, 15), curves=("psrr_neg_db",))
+    assert obj["band_psrr_neg_db"] == lib.to_json()["band_psrr_neg_db"]
+    assert obj["psrr_neg_dc_db"] == lib.stats("psrr_neg_dc_db")
+    header = (tmp_path / "b.csv").read_text().splitlines()[0]
+    assert header == "frequency_hz,psrr_neg_db_p5,psrr_neg_db_p50,psrr_neg_db_p95"
+    text = subprocess.run(base, capture_output=True, text=True, cwd=ROOT)
+    assert text.returncode == 0, text.stderr
+    assert "PSRR− at DC (at out)" in text.stdout and "PSRR− at out band [dB]" in text.stdout
+    # --metric and --bands together: the union, in the order given
+    both = subprocess.run(base + ["--bands", "cmrr_se_db", "--metric", "psrr_pos", "--json"],
+                          capture_output=True, text=True, cwd=ROOT)
+    assert both.returncode == 0, both.stderr
+    assert [k for k in json.loads(both.stdout) if k.startswith("band_")] == \
+        ["band_psrr_pos_db", "band_cmrr_se_db"]
+
+
+def test_cli_bad_metric_is_one_line_naming_the_option():
+    # common practice: CLI error contract — exit 2, one stderr line naming option and value
+    for metric, match in (("psrr", "--metric 'psrr': unknown (choose from cmrr_se, cmrr, "
+                                   "psrr_pos, psrr_neg)"),
+                          ("cmrr", "--metric 'cmrr': a mirror-loaded stage has one output")):
+        out = subprocess.run([sys.executable, "-m", "freqpair.cli", "montecarlo",
+                              "examples/two_stage_miller_loop.toml", "-n", "10",
+                              "--spread", "mismatch.load=normal:1%", "--metric", metric],
+                             capture_output=True, text=True, cwd=ROOT)
+        assert out.returncode == 2 and out.stdout == "", out.stderr
+        assert len(out.stderr.strip().splitlines()) == 1 and match in out.stderr, out.stderr
