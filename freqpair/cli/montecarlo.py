@@ -205,11 +205,11 @@ def register(sub) -> None:
                     "spec. Samples are reduced as they go (histograms of 1/256 dB bins, "
                     "percentiles as numpy's default within 0.004 dB), so memory does not grow "
                     "with the sample count. Spread syntax: KEY=normal:SIGMA or KEY=uniform:HALFWIDTH "
-                    "(fractions, '1%%' allowed). Keys: mismatch.load, mismatch.gm (spread "
+                    "(fractions, '1%' allowed). Keys: mismatch.load, mismatch.gm (spread "
                     "around the nominal δ), tail.resistance, tail.capacitance, "
                     "load.capacitance (relative to nominal). Example: freqpair montecarlo "
-                    "design.toml -n 10000 --seed 1 --spread mismatch.load=normal:1%% "
-                    "--spread tail.capacitance=uniform:20%% --spec 70@1M")
+                    "design.toml -n 10000 --seed 1 --spread mismatch.load=normal:1% "
+                    "--spread tail.capacitance=uniform:20% --spec 70@1M")
     p.add_argument("design", help="design file (TOML)")
     p.add_argument("--spread", action="append", required=True, metavar="KEY=KIND:WIDTH",
                    help="a distribution (repeat for several keys)")
