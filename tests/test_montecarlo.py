@@ -491,3 +491,201 @@ def test_cli_keep_samples_writes_every_sample_and_the_same_summary(tmp_path):
     assert float(rows[7]["mismatch.load"]) == lib.values["mismatch.load"][7]
     assert float(rows[7]["cmrr_corner_hz"]) == lib.corner_hz[7]
     assert float(rows[299][f"cmrr_se_db@{float(lib.f_hz[5])!r}"]) == lib.cmrr_se_db_f[299, 5]
+
+
+# ---------------------------------------------------------------- two stages, body effect, PSRR
+
+TWO_STAGE_RESISTOR = BUILTIN_EXAMPLE.replace("[sweep]", """[second_stage]
+gm = "4 mS"
+output_resistance = "150 k"
+input_capacitance = "0.5 pF"
+load_capacitance = "10 pF"
+miller_capacitance = "3 pF"
+nulling_resistance = 0
+
+[sweep]""")
+PSRR = ("psrr_pos_db", "psrr_neg_db")
+ALL_FIVE = {"mismatch.load": "normal:5%", "mismatch.gm": "normal:5%",
+            "load.capacitance": "normal:20%", "tail.resistance": "normal:20%",
+            "tail.capacitance": "uniform:50%"}
+NO_NORTON = {k: v for k, v in ALL_FIVE.items() if not k.startswith("tail.")}
+F_PSRR = np.logspace(0, 10, 21)
+
+
+def _psrr_case(name):
+    """(design, spreads) per case: one stage and two stages, each load kind, a MOS
+    design with body effect (g_mb follows g_m) and a cascode tail."""
+    if name == "builtin":
+        return freqpair.design_from_text(BUILTIN_EXAMPLE), ALL_FIVE
+    if name == "two_stage_resistor_load":
+        return freqpair.design_from_text(TWO_STAGE_RESISTOR), ALL_FIVE
+    d = freqpair.load_design(ROOT / "examples" / f"{name}.toml")
+    return d, (ALL_FIVE if d.tail.type == "norton" else NO_NORTON)
+
+
+def _rebuilt(design, values, i):
+    """The sampled design of sample i, rebuilt from its sampled values."""
+    for key, x in values.items():
+        design = freqpair.replace_value(design, key, float(x[i]))
+    return design
+
+
+@pytest.mark.parametrize("case, key", [("two_stage_resistor_load", "load.capacitance"),
+                                       ("nmos_cascode_divider_loop", "mismatch.gm")])
+def test_a_spread_moves_the_elements_it_names_and_only_those(case, key):
+    # oracle: freqpair.analyze of each sampled design rebuilt with freqpair.replace_value
+    # (its own freshly stamped network). A resistor-loaded stage's C_L at o2 and a second
+    # stage's C_L at out carry the same label; a MOS pair's g_mb scales with its g_m
+    # (DESIGN.md §7b) — the batched gains follow the design file, not the labels
+    from freqpair.studies.batch import BatchEvaluator
+    from freqpair.studies.montecarlo import sample_values
+    d, _ = _psrr_case(case)
+    spec = MonteCarloSpec.from_dict({key: "normal:20%" if key.startswith("load") else "normal:5%"})
+    ev = BatchEvaluator(d, spec.keys)
+    values = sample_values(d, spec, 0, 4, 13)
+    dG, dC = ev.deltas(values)
+    g = ev.on_grid(2j * np.pi * F_PSRR, dG, dC)
+    for i in range(4):
+        r = freqpair.analyze(_rebuilt(d, values, i)).responses.at(F_PSRR)
+        np.testing.assert_allclose(g.adm_se[i], r.adm_se, rtol=1e-9)
+        np.testing.assert_allclose(g.acm_se[i], r.acm_se, rtol=1e-9)
+
+
+@pytest.mark.parametrize("case", ["builtin", "two_stage_resistor_load",
+                                  "npn_mirror_load_simple_mirror_tail", "two_stage_miller_loop",
+                                  "nmos_cascode_divider_loop"])
+def test_batched_psrr_curves_match_psrr_db_of_single_analyses_of_the_sampled_designs(case):
+    # oracle: freqpair.analyze of each sampled design (rebuilt with freqpair.replace_value
+    # from the run's sampled values) → freqpair.analysis.supply.psrr_db at the same
+    # frequencies, and its DC PSRR± (DESIGN.md §7f: single-ended output o2, or out with a
+    # second stage, against A_dm,se or A_total)
+    from freqpair.analysis.supply import psrr_db, single_ended_name
+    d, spreads = _psrr_case(case)
+    spec = MonteCarloSpec.from_dict(spreads)
+    res = run_montecarlo(d, spec, 12, seed=21, f_hz=F_PSRR, chunk=5, keep_samples=True,
+                         curves=PSRR + ("adm_se_db", "cmrr_se_db"))
+    for i in (0, 5, 11):
+        a = freqpair.analyze(_rebuilt(d, res.values, i))
+        r = a.responses.at(F_PSRR)
+        se = single_ended_name(a.responses)
+        assert se == ("a_total" if d.second_stage is not None else "adm_se")
+        for name, rail, dc in (("psrr_pos_db", "vpos", a.supply.psrr_pos_db),
+                               ("psrr_neg_db", "vneg", a.supply.psrr_neg_db)):
+            np.testing.assert_allclose(res.curves[name][i], psrr_db(r, rail, se), rtol=1e-9,
+                                       atol=1e-9, err_msg=f"{case} sample {i} {name}")
+            got = getattr(res, name.replace("_db", "_dc_db"))[i]
+            assert got == pytest.approx(dc, rel=1e-9, abs=1e-9), (case, i, name)
+        # the first stage's curves at o2 in the same run (the load capacitance spread is
+        # C_L at o2, not the second stage's, and g_mb follows g_m's mismatch)
+        np.testing.assert_allclose(res.curves["adm_se_db"][i], 20 * np.log10(np.abs(r.adm_se)),
+                                   rtol=1e-9, atol=1e-9)
+        np.testing.assert_allclose(res.curves["cmrr_se_db"][i],
+                                   20 * np.log10(np.abs(r.adm_se / r.acm_se)), rtol=1e-9)
+
+
+def test_rail_gain_zero_to_rounding_gives_an_infinite_psrr():
+    # oracle: DESIGN.md §7f — a rail gain below 1e-12·|A_se(0)| makes that PSRR infinite
+    # (analyze: null at DC); where the rail's gain is above that, freqpair.analyze →
+    # psrr_db of the sampled design. The matched MOS pair's negative rail reaches o2 only
+    # through C_db: its gain is exactly 0 at DC and falls below the floor at 1 mHz.
+    from freqpair.analysis.supply import psrr_db
+    d = freqpair.load_design(ROOT / "examples" / "nmos_resistor_ideal_tail.toml")
+    spec = MonteCarloSpec.from_dict({"load.capacitance": "normal:10%"})
+    f = np.array([1e-3, 1e2, 1e5, 1e8])
+    res = run_montecarlo(d, spec, 6, seed=4, f_hz=f, keep_samples=True, curves=PSRR)
+    assert np.all(res.psrr_neg_dc_db == np.inf) and np.all(np.isfinite(res.psrr_pos_dc_db))
+    assert res.to_json()["psrr_neg_dc_db"] == {"p5": None, "p50": None, "p95": None}
+    a = freqpair.analyze(_rebuilt(d, res.values, 2))
+    assert a.supply.psrr_neg_db is None
+    r = a.responses.at(f)
+    below = np.abs(r.a_vneg) <= 1e-12 * np.abs(a.responses.dc().adm_se[0])
+    assert below.tolist() == [True, False, False, False]
+    assert res.curves["psrr_neg_db"][2, 0] == np.inf
+    np.testing.assert_allclose(res.curves["psrr_neg_db"][2, 1:], psrr_db(r, "vneg", "adm_se")[1:],
+                               rtol=1e-9)
+
+
+@pytest.fixture(scope="module")
+def kept_psrr():
+    d = freqpair.load_design(ROOT / "examples" / "two_stage_miller_loop.toml")
+    spec = MonteCarloSpec.from_dict({"mismatch.load": "normal:1%", "mismatch.gm": "normal:1%",
+                                     "tail.resistance": "normal:10%"})
+    return run_montecarlo(d, spec, 5000, seed=8, f_hz=np.logspace(1, 9, 17), chunk=700,
+                          percentiles=(0, 1, 5, 50, 95, 99, 100), curves=PSRR, keep_samples=True,
+                          yields=[(100.0, 1e3, "psrr_pos")])
+
+
+def test_psrr_bands_from_histograms_are_within_0p01_db_of_numpy_percentile(kept_psrr):
+    # oracle: numpy.percentile (default method 'linear') of the kept samples, same seed;
+    # the histograms promise one bin (1/256 dB), the brief 0.01 dB
+    res = kept_psrr
+    q = res.percentiles
+    for name in PSRR:
+        exact = np.percentile(res.curves[name], q, axis=0)
+        err = np.abs(res.bands[name] - exact).max()
+        assert err <= 2.0 ** -8 and err <= 0.01, (name, err)
+        dc = name.replace("_db", "_dc_db")
+        x = getattr(res, dc)
+        assert np.abs(res.percentile(dc, q) - np.percentile(x, q)).max() <= 2.0 ** -8, dc
+    np.testing.assert_array_equal(res.band_psrr_neg_db, res.bands["psrr_neg_db"])
+    obj = res.to_json()
+    assert obj["band_psrr_pos_db"]["p50"] == [float(v) for v in res.bands["psrr_pos_db"][3]]
+    assert set(obj["psrr_neg_dc_db"]) == {"p0", "p1", "p5", "p50", "p95", "p99", "p100"}
+    # a PSRR yield counted as the samples went by: oracle the kept samples counted directly
+    k = int(np.nonzero(np.isclose(res.f_hz, 1e3))[0][0])
+    assert res.yield_fraction(100.0, 1e3, "psrr_pos") == \
+        np.mean(res.curves["psrr_pos_db"][:, k] >= 100.0)
+
+
+def test_psrr_band_does_not_depend_on_the_chunk_size():
+    # common practice: reproducibility contract — the same bits for any chunk size
+    d = freqpair.design_from_text(TWO_STAGE_RESISTOR)
+    a = run_montecarlo(d, THREE, 600, seed=9, f_hz=F, chunk=600, curves=PSRR)
+    b = run_montecarlo(d, THREE, 600, seed=9, f_hz=F, chunk=37, curves=PSRR)
+    assert json.dumps(a.to_json()) == json.dumps(b.to_json())
+    for name in PSRR:
+        assert a.summary.curves[name] == b.summary.curves[name]
+
+
+def test_cli_metric_psrr_neg_prints_the_band_in_json_text_and_csv(tmp_path):
+    # oracle: the library's run with curves=("psrr_neg_db",) on the same seed and grid
+    # (the CLI's --metric is an alias of --bands psrr_neg_db)
+    path = "examples/two_stage_miller_loop.toml"
+    base = [sys.executable, "-m", "freqpair.cli", "montecarlo", path, "-n", "400", "--seed", "3",
+            "--points", "15", "--spread", "mismatch.load=normal:1%",
+            "--spread", "tail.resistance=normal:10%", "--metric", "psrr_neg"]
+    out = subprocess.run(base + ["--json", "--csv", str(tmp_path / "b.csv")],
+                         capture_output=True, text=True, cwd=ROOT)
+    assert out.returncode == 0 and out.stderr == "", out.stderr
+    obj = json.loads(out.stdout)
+    assert set(obj["band_psrr_neg_db"]) == {"p5", "p50", "p95"}
+    assert len(obj["band_psrr_neg_db"]["p50"]) == 15 and "band_cmrr_se_db" not in obj
+    d = freqpair.load_design(ROOT / path)
+    spec = MonteCarloSpec.from_dict({"mismatch.load": "normal:1%", "tail.resistance": "normal:10%"})
+    lib = run_montecarlo(d, spec, 400, seed=3, f_hz=np.logspace(1, 10, 15), curves=("psrr_neg_db",))
+    assert obj["band_psrr_neg_db"] == lib.to_json()["band_psrr_neg_db"]
+    assert obj["psrr_neg_dc_db"] == lib.stats("psrr_neg_dc_db")
+    header = (tmp_path / "b.csv").read_text().splitlines()[0]
+    assert header == "frequency_hz,psrr_neg_db_p5,psrr_neg_db_p50,psrr_neg_db_p95"
+    text = subprocess.run(base, capture_output=True, text=True, cwd=ROOT)
+    assert text.returncode == 0, text.stderr
+    assert "PSRR− at DC (at out)" in text.stdout and "PSRR− at out band [dB]" in text.stdout
+    # --metric and --bands together: the union, in the order given
+    both = subprocess.run(base + ["--bands", "cmrr_se_db", "--metric", "psrr_pos", "--json"],
+                          capture_output=True, text=True, cwd=ROOT)
+    assert both.returncode == 0, both.stderr
+    assert [k for k in json.loads(both.stdout) if k.startswith("band_")] == \
+        ["band_psrr_pos_db", "band_cmrr_se_db"]
+
+
+def test_cli_bad_metric_is_one_line_naming_the_option():
+    # common practice: CLI error contract — exit 2, one stderr line naming option and value
+    for metric, match in (("psrr", "--metric 'psrr': unknown (choose from cmrr_se, cmrr, "
+                                   "psrr_pos, psrr_neg)"),
+                          ("cmrr", "--metric 'cmrr': a mirror-loaded stage has one output")):
+        out = subprocess.run([sys.executable, "-m", "freqpair.cli", "montecarlo",
+                              "examples/two_stage_miller_loop.toml", "-n", "10",
+                              "--spread", "mismatch.load=normal:1%", "--metric", metric],
+                             capture_output=True, text=True, cwd=ROOT)
+        assert out.returncode == 2 and out.stdout == "", out.stderr
+        assert len(out.stderr.strip().splitlines()) == 1 and match in out.stderr, out.stderr

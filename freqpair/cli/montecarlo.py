@@ -7,6 +7,9 @@ Spread syntax (``--spread``)::
 
 Mismatch keys spread absolutely (they are relative already); sizes relative
 to their nominal value.
+
+``--metric`` names a banded curve in the trade's words — ``cmrr_se``, ``cmrr``,
+``psrr_pos``, ``psrr_neg`` — and is the same as ``--bands NAME_db``.
 """
 from __future__ import annotations
 
@@ -14,7 +17,17 @@ from freqpair.cli.common import CliError, _num, add_scheduler_option, key_spec, 
     run_with_progress
 from freqpair.design.errors import FreqpairError
 
-__all__ = ["register", "parse_spread"]
+__all__ = ["register", "parse_spread", "METRICS"]
+
+#: ``--metric`` names → the banded curve they select
+METRICS = {"cmrr_se": "cmrr_se_db", "cmrr": "cmrr_db", "psrr_pos": "psrr_pos_db",
+           "psrr_neg": "psrr_neg_db"}
+#: how the printed summary names each curve
+_LABELS = {"cmrr_se_db": "single-ended CMRR", "cmrr_db": "balanced CMRR",
+           "adm_db": "|A_dm|", "adm_se_db": "|A_dm,se|", "acm_se_db": "|A_cm,se|",
+           "acm_dm_db": "|A_cm-dm|", "psrr_pos_db": "PSRR+", "psrr_neg_db": "PSRR−"}
+#: rows of a band printed as text (the full band: --json or --csv)
+_TEXT_ROWS = 12
 
 
 def parse_spread(text: str):
@@ -56,7 +69,8 @@ def _write_samples(path, res) -> None:
     keys = list(res.values)
     curves = list(res.curves)
     stats = [("cmrr_se_dc_db", res.cmrr_se_dc_db), ("cmrr_dc_db", res.cmrr_dc_db),
-             ("cmrr_corner_hz", res.corner_hz)]
+             ("cmrr_corner_hz", res.corner_hz), ("psrr_pos_dc_db", res.psrr_pos_dc_db),
+             ("psrr_neg_dc_db", res.psrr_neg_dc_db)]
     stats = [(k, v) for k, v in stats if v is not None]
     cols = ["sample"] + keys + [k for k, _ in stats] + \
         [f"{c}@{float(f)!r}" for c in curves for f in res.f_hz]
@@ -69,6 +83,51 @@ def _write_samples(path, res) -> None:
                     + [float(x) for c in curves for x in res.curves[c][i]]
                     for i in range(lo, hi))
             fh.write(csv_text(cols, rows).split("\n", 1)[1])
+
+
+def _curves(args, design):
+    """The banded curves asked for by ``--metric`` and ``--bands`` (None: the default)."""
+    from freqpair.studies.montecarlo import BALANCED_CURVES, CURVES
+    asked = []
+    for option, text, names in (("--metric", args.metric, METRICS),
+                                ("--bands", args.bands, {c: c for c in CURVES})):
+        for item in (text or "").split(","):
+            item = item.strip()
+            if not item:
+                continue
+            if item not in names:
+                raise CliError(f"{option} {item!r}: unknown (choose from {', '.join(names)})")
+            curve = names[item]
+            if curve in BALANCED_CURVES and design.load.type == "mirror":
+                raise CliError(f"{option} {item!r}: a mirror-loaded stage has one output "
+                               "(no balanced curves)")
+            asked.append(curve)
+    return tuple(dict.fromkeys(asked)) or None
+
+
+def _band_rows(f):
+    """Grid indices shown in a printed band: every point of a short grid, else the
+    first and last points and the points nearest each decade between them."""
+    import numpy as np
+    if f.size <= _TEXT_ROWS:
+        return list(range(f.size))
+    x = np.log10(f)
+    decades = np.arange(np.ceil(x[0]), np.floor(x[-1]) + 1)
+    picks = np.abs(x[None, :] - decades[:, None]).argmin(axis=1)
+    step = max(1, -(-picks.size // (_TEXT_ROWS - 2)))
+    return sorted({0, f.size - 1, *picks[::step].tolist()})
+
+
+def _print_band(res, name, output) -> None:
+    from freqpair.design.quantities import format_si
+    band = res.bands[name]
+    where = f" at {output}" if name.startswith("psrr") else ""
+    head = f"  {_LABELS.get(name, name)}{where} band [dB]"
+    print(f"{head:34s}" + "".join(f"{'p' + format(q, 'g'):>10s}" for q in res.percentiles))
+    for k in _band_rows(res.f_hz):
+        cells = "".join(f"{'∞' if v == float('inf') else format(v, '.2f'):>10s}"
+                        for v in band[:, k])
+        print(f"    {format_si(float(res.f_hz[k]), 'Hz'):30s}{cells}")
 
 
 def cmd_montecarlo(args) -> int:
@@ -91,16 +150,7 @@ def cmd_montecarlo(args) -> int:
             raise CliError(f"{opt} = {v}: must be a whole number ≥ {low}")
     if not all(0 <= x <= 100 for x in q):
         raise CliError(f"--percentiles = {args.percentiles!r}: each in [0, 100]")
-    curves = None
-    if args.bands:
-        from freqpair.studies.montecarlo import BALANCED_CURVES, CURVES
-        curves = tuple(c.strip() for c in args.bands.split(",") if c.strip())
-        for c in curves:
-            if c not in CURVES:
-                raise CliError(f"--bands {c!r}: unknown (choose from {', '.join(CURVES)})")
-            if c in BALANCED_CURVES and design.load.type == "mirror":
-                raise CliError(f"--bands {c!r}: a mirror-loaded stage has one output "
-                               "(no balanced curves)")
+    curves = _curves(args, design)
     res = run_with_progress(args, args.samples, "montecarlo",
                             lambda ex, cb: run_montecarlo(
                                 design, spec, args.samples, args.seed, f_hz=f,
@@ -124,12 +174,19 @@ def cmd_montecarlo(args) -> int:
         return 0
     print(f"Monte Carlo: {res.n} samples, seed {res.seed}; spreads: "
           + ", ".join(f"{k} {s.kind} {s.width:g}" for k, s in spec.spreads))
+    output = "out" if design.second_stage is not None else "o2"
     for name, label, unit in (("cmrr_se_dc_db", "single-ended CMRR at DC", "dB"),
                               ("cmrr_dc_db", "balanced CMRR at DC", "dB"),
-                              ("cmrr_corner_hz", "CMRR corner", "Hz")):
+                              ("cmrr_corner_hz", "CMRR corner", "Hz"),
+                              ("psrr_pos_dc_db", f"PSRR+ at DC (at {output})", "dB"),
+                              ("psrr_neg_dc_db", f"PSRR− at DC (at {output})", "dB")):
         st = obj.get(name)
         if st:
             print(f"  {label:26s} " + "   ".join(f"{k}: {_fmt(v, unit)}" for k, v in st.items()))
+    for name in curves or ():          # the bands asked for by --metric / --bands
+        _print_band(res, name, output)
+    if curves:
+        print("  (every grid frequency: --json or --csv)")
     if "yield" in obj:
         y = obj["yield"]
         print(f"  yield: {100 * y['fraction']:.2f} % of samples have single-ended CMRR ≥ "
@@ -141,17 +198,18 @@ def cmd_montecarlo(args) -> int:
 
 def register(sub) -> None:
     p = sub.add_parser(
-        "montecarlo", help="Monte Carlo mismatch: CMRR percentile bands, corner spread, yield",
-        description="Sample mismatch and value spreads and report CMRR(f) percentile bands, "
+        "montecarlo", help="Monte Carlo mismatch: CMRR/PSRR percentile bands, corner spread, yield",
+        description="Sample mismatch and value spreads and report CMRR(f) (or PSRR(f): "
+                    "--metric psrr_neg) percentile bands, "
                     "the spread of the DC CMRR and of the CMRR corner, and the yield against a "
                     "spec. Samples are reduced as they go (histograms of 1/256 dB bins, "
                     "percentiles as numpy's default within 0.004 dB), so memory does not grow "
                     "with the sample count. Spread syntax: KEY=normal:SIGMA or KEY=uniform:HALFWIDTH "
-                    "(fractions, '1%%' allowed). Keys: mismatch.load, mismatch.gm (spread "
+                    "(fractions, '1%' allowed). Keys: mismatch.load, mismatch.gm (spread "
                     "around the nominal δ), tail.resistance, tail.capacitance, "
                     "load.capacitance (relative to nominal). Example: freqpair montecarlo "
-                    "design.toml -n 10000 --seed 1 --spread mismatch.load=normal:1%% "
-                    "--spread tail.capacitance=uniform:20%% --spec 70@1M")
+                    "design.toml -n 10000 --seed 1 --spread mismatch.load=normal:1% "
+                    "--spread tail.capacitance=uniform:20% --spec 70@1M")
     p.add_argument("design", help="design file (TOML)")
     p.add_argument("--spread", action="append", required=True, metavar="KEY=KIND:WIDTH",
                    help="a distribution (repeat for several keys)")
@@ -166,7 +224,13 @@ def register(sub) -> None:
                         "100 frequencies)")
     p.add_argument("--bands", metavar="LIST",
                    help="curves to band, comma-separated: cmrr_se_db, cmrr_db, adm_db, "
-                        "adm_se_db, acm_se_db, acm_dm_db (default: the CMRRs)")
+                        "adm_se_db, acm_se_db, acm_dm_db, psrr_pos_db, psrr_neg_db "
+                        "(default: the CMRRs)")
+    p.add_argument("--metric", metavar="LIST",
+                   help="the same by name, comma-separated: cmrr_se, cmrr, psrr_pos, psrr_neg "
+                        "(e.g. --metric psrr_neg = --bands psrr_neg_db); the bands asked for "
+                        "are printed, and a PSRR's DC spread with them. PSRR is read at the "
+                        "single-ended output (o2, or out with a second stage)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--csv", metavar="FILE", help="write the bands per frequency as CSV")
     p.add_argument("--keep-samples", metavar="FILE",

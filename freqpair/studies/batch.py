@@ -10,7 +10,10 @@ sample's pencil is
     G + s·C = (G0 + s·C0) + U · diag(d(s)) · Vᵀ,   d_k(s) = ΔG_k + s·ΔC_k
 
 with one column of U, V per distinct pattern (R and C on the same node pair
-share one). The nominal pencil is reduced once (QZ, as in
+share one; a MOS device's g_mb, which scales with its g_m, joins the g_m's
+column: ``v = v_gs + (g_mb/g_m)·v_bs``). Elements are found by label, kind and
+nodes, the stage's own first (a second stage's C_L is also labelled "CL2").
+The nominal pencil is reduced once (QZ, as in
 :class:`~freqpair.circuit.network.FrequencySolver`) for the right-hand sides ``[B, U]``
 and the outputs ``[L; Vᵀ]``, which gives at each frequency
 
@@ -38,7 +41,11 @@ sample ever needs its own n × n solve; :meth:`BatchEvaluator.paired` (each
 sample's own ``G + s·C`` solved directly) stays as an independent check.
 
 Array layout: samples first, then frequency: ``(n_samples, n_f, ...)``.
-Outputs are the rows ``[o1 − o2, o2]`` and excitations the columns ``[DM, CM]``.
+Outputs are the rows ``[o1 − o2, o2]`` (and ``out`` with a second stage) and
+excitations the columns ``[DM, CM, vpos, vneg]`` (:data:`DRIVES`). Supply
+rejection (DESIGN.md §7f) is the ratio of two numerators at the single-ended
+output v_so (o2, or ``out`` with a second stage): PSRR± = |N(v_so, DM)| /
+|N(v_so, rail)|, the determinant cancelling as it does for the CMRR.
 """
 from __future__ import annotations
 
@@ -51,11 +58,11 @@ import numpy as np
 
 from freqpair.design.errors import DesignError
 from freqpair.circuit.network import GROUND, FrequencySolver
-from freqpair.analysis.responses import ZERO_GAIN_RATIO
-from freqpair.circuit.stage import build_stage
+from freqpair.analysis.responses import EXCITATIONS, ZERO_GAIN_RATIO
+from freqpair.circuit.stage import TAIL_NODE, build_stage
 
 __all__ = ["BatchEvaluator", "BATCH_KEYS", "BatchGains", "CURVES", "BALANCED_CURVES",
-           "excitations", "single_threaded_blas"]
+           "PSRR_CURVES", "DRIVES", "excitations", "single_threaded_blas"]
 
 #: Design keys a batched evaluation can vary (values that do not move the bias).
 BATCH_KEYS = ("mismatch.load", "mismatch.gm", "tail.resistance", "tail.capacitance",
@@ -67,12 +74,18 @@ class BatchGains:
     """Complex gains of many samples; every array has shape ``(n_samples, ...)``.
 
     ``adm`` and ``acm_dm`` are None for a stage without a balanced output.
+    ``a_se`` is the single-ended differential gain PSRR divides (A_dm,se, or
+    A_total with a second stage); ``a_vpos``, ``a_vneg`` are the rails' gains to
+    the same output (DESIGN.md §7f).
     """
 
     adm: np.ndarray | None
     adm_se: np.ndarray
     acm_se: np.ndarray
     acm_dm: np.ndarray | None
+    a_se: np.ndarray | None = None
+    a_vpos: np.ndarray | None = None
+    a_vneg: np.ndarray | None = None
 
 
 #: Sample × frequency elements per matrix-product block: the block holds
@@ -81,12 +94,22 @@ class BatchGains:
 GEMM_ELEMENTS = 20_000
 #: Samples per batched direct solve (one n × n complex matrix each, ~2.4 MB for 12 nodes).
 SOLVE_BLOCK = 1024
+#: The drives, columns of the expansion's right-hand sides (DESIGN.md §2, §7f):
+#: differential, common mode, and each rail alone (the inputs at 0).
+DRIVES = ("dm", "cm", "vpos", "vneg")
 #: Polynomials of the grid expansion: det(I + D·K), then the numerators of
-#: (balanced, DM), (balanced, CM), (o2, DM), (o2, CM).
-_POLYS = ("det", "adm", "acm_dm", "adm_se", "acm_se")
+#: (balanced, DM), (balanced, CM), (o2, DM), (o2, CM), and at the single-ended
+#: output v_so (o2, or ``out`` with a second stage) (v_so, DM), (v_so, vpos),
+#: (v_so, vneg). Without a second stage v_so is o2 and "a_se" is "adm_se" (one
+#: polynomial, :attr:`BatchEvaluator.poly_alias`).
+_POLYS = ("det", "adm", "acm_dm", "adm_se", "acm_se", "a_se", "a_vpos", "a_vneg")
+#: polynomial → (output, drive) of its numerator
+_TERMS = {1: ("balanced", "dm"), 2: ("balanced", "cm"), 3: ("o2", "dm"), 4: ("o2", "cm"),
+          5: ("so", "dm"), 6: ("so", "vpos"), 7: ("so", "vneg")}
 #: Per-frequency values [dB] of :meth:`BatchEvaluator.db_on_grid`: name → (numerator
 #: polynomial, denominator polynomial, which one the zero-to-rounding rule tests).
-#: A CMRR whose common-mode gain is zero to rounding is +inf; such a gain is −inf dB.
+#: A CMRR whose common-mode gain is zero to rounding is +inf, a PSRR whose rail gain
+#: is, likewise; such a gain is −inf dB.
 _CURVE_POLYS = {
     "cmrr_se_db": (3, 4, "den"),
     "cmrr_db": (1, 2, "den"),
@@ -94,12 +117,18 @@ _CURVE_POLYS = {
     "adm_se_db": (3, 0, "num"),
     "acm_se_db": (4, 0, "num"),
     "acm_dm_db": (2, 0, "num"),
+    "psrr_pos_db": (5, 6, "den"),
+    "psrr_neg_db": (5, 7, "den"),
 }
-#: Curve names [dB]: CMRRs (single-ended, balanced) and the gains |A_dm|, |A_dm,se|,
-#: |A_cm,se|, |A_cm-dm| (DESIGN.md §2).
+#: Curve names [dB]: CMRRs (single-ended, balanced), the gains |A_dm|, |A_dm,se|,
+#: |A_cm,se|, |A_cm-dm| (DESIGN.md §2) and PSRR+, PSRR− at the single-ended output
+#: (DESIGN.md §7f).
 CURVES = tuple(_CURVE_POLYS)
 #: The curves that need a balanced (two-output) stage.
 BALANCED_CURVES = ("cmrr_db", "adm_db", "acm_dm_db")
+#: The supply-rejection curves: their zero-to-rounding reference is |A_se(0)|
+#: (A_dm,se or A_total), not the first stage's differential gain.
+PSRR_CURVES = ("psrr_pos_db", "psrr_neg_db")
 #: Block height of the small lattice plans (root refinement): fixed, like GEMM_ELEMENTS.
 LATTICE_ROWS = 32
 #: Lattice blocks per stacked product (bounds the temporaries to a few MB).
@@ -128,15 +157,17 @@ def _split(delta, side):
     return 1.0 + (delta / 2.0 if side == 1 else -delta / 2.0)
 
 
-def excitations(B: np.ndarray) -> np.ndarray:
-    """The differential and common-mode drives ``(n, 2)`` from the input matrix ``B``.
+def excitations(B: np.ndarray, kinds=("dm", "cm")) -> np.ndarray:
+    """The drives ``kinds`` (from :data:`DRIVES`) as columns ``(n, len(kinds))`` of
+    the input matrix ``B``.
 
-    The first two columns of ``B`` are the inputs in1, in2 (DESIGN.md §2):
-    v_id = v_in1 − v_in2 = 1 is ``[0.5, −0.5]``, v_ic = 1 is ``[1, 1]``. Any further
-    columns (other sources, e.g. the supply rails) are not driven.
+    The first four columns of ``B`` are the sources in1, in2, vpos, vneg
+    (:data:`freqpair.analysis.responses.EXCITATIONS`): v_id = v_in1 − v_in2 = 1 is
+    ``[0.5, −0.5, 0, 0]``, v_ic = 1 is ``[1, 1, 0, 0]``, a rail alone ``[0, 0, 1, 0]``
+    or ``[0, 0, 0, 1]``. Sources that a drive does not name stay at 0.
     """
-    inputs = B[:, :2]
-    return np.column_stack([inputs @ np.array([0.5, -0.5]), inputs @ np.array([1.0, 1.0])])
+    n_src = min(B.shape[1], 4)
+    return np.column_stack([B[:, :n_src] @ EXCITATIONS[k][:n_src] for k in kinds])
 
 
 class BatchEvaluator:
@@ -160,17 +191,22 @@ class BatchEvaluator:
         self.stage = build_stage(design)
         net = self.stage.network
         self.balanced = self.stage.balanced
+        #: the single-ended output PSRR is read at: "o2", or "out" with a second stage
+        self.single_ended = self.stage.final_node
         G, C, B = net.matrices()
         self.n = G.shape[0]
         self._index = {name: i for i, name in enumerate(net.node_names)}
-        self._by_label = {e[1]: e for e in net.elements}
-        # element label -> (key, value function of the key's sampled values)
+        # element label -> (element, key, value function of the key's sampled values)
         self._rules = self._element_rules()
         patterns: list[tuple[bytes, np.ndarray, np.ndarray]] = []
         self._slots: list[tuple[int, str, float, object]] = []   # (col, kind, nominal, fn)
-        for label, (key, fn) in self._rules.items():
-            kind, _, nodes, nominal = self._by_label[label]
+        for label, (element, key, fn, partners) in self._rules.items():
+            kind, _, nodes, nominal = element
             u, v = self._vectors(kind, nodes)
+            for p_kind, _, p_nodes, p_value in partners:
+                # a MOS device's g_mb scales with its g_m (DESIGN.md §7b) and drives the
+                # same output: one column, v = (v_gs + g_mb/g_m · v_bs) control vector
+                v = v + (p_value / nominal) * self._vectors(p_kind, p_nodes)[1]
             tag = u.tobytes() + v.tobytes()
             col = next((i for i, (t, _, _) in enumerate(patterns) if t == tag), None)
             if col is None:
@@ -180,8 +216,23 @@ class BatchEvaluator:
         self.rank = len(patterns)
         U = np.array([p[1] for p in patterns]).T.reshape(self.n, self.rank)
         V = np.array([p[2] for p in patterns]).T.reshape(self.n, self.rank)
-        rows = np.array([net.selector({"o1": 1.0, "o2": -1.0}), net.selector({"o2": 1.0})])
-        exc = excitations(B)
+        rows = [net.selector({"o1": 1.0, "o2": -1.0}), net.selector({"o2": 1.0})]
+        if self.single_ended != "o2":
+            rows.append(net.selector({self.single_ended: 1.0}))
+        rows = np.array(rows)
+        #: output rows [o1 − o2, o2(, out)]; which row each output name is
+        self.n_out = rows.shape[0]
+        out_row = {"balanced": 0, "o2": 1, "so": self.n_out - 1}
+        #: polynomial → (output row, drive column) of its numerator
+        self._pairs = {p: (out_row[o], DRIVES.index(d)) for p, (o, d) in _TERMS.items()}
+        #: polynomials that are the same as another one (v_so = o2: A_se is A_dm,se)
+        self.poly_alias = {5: 3} if self.single_ended == "o2" else {}
+        alias = self.poly_alias
+        self._curve_polys = {name: (alias.get(a, a), alias.get(b, b), test)
+                             for name, (a, b, test) in _CURVE_POLYS.items()}
+        #: the polynomials of a full plan (:meth:`on_grid`), aliases left out
+        self.all_polys = tuple(p for p in range(len(_POLYS)) if p not in alias)
+        exc = excitations(B, DRIVES)
         self.solver = FrequencySolver(G, C, np.hstack([exc, U]), np.vstack([rows, V.T]))
         #: the solver's frequency scale [rad/s] (the expansion's s/s0 and s0·ΔC)
         self.s0 = self.solver.s0
@@ -218,40 +269,61 @@ class BatchEvaluator:
         u = e(a) - e(b)
         return u, u.copy()
 
+    def _element(self, kind, label, first_nodes=()):
+        """The stage's own element ``label`` of ``kind`` whose nodes begin with
+        ``first_nodes``, or None (absent: a zero value is not stamped).
+
+        The first one stamped: the stage stamps its own elements before a second
+        stage's and the added ones, which may carry the same label (a resistor-
+        loaded stage's C_L at o2 and the second stage's at ``out`` are both "CL2").
+        """
+        n = len(first_nodes)
+        for e in self.stage.network.elements:
+            if e[0] == kind and e[1] == label and tuple(e[2][:n]) == tuple(first_nodes):
+                return e
+        return None
+
     def _element_rules(self) -> dict:
         d = self.design
         st = self.stage
-        rules = {}
+        rules = {}          # label -> (kind, first nodes, key, value function)
         for key in self.keys:
             if key == "mismatch.load":
                 if d.load.type == "resistor":
                     r = d.load.resistance
-                    rules["RL1"] = (key, lambda x, r=r: 1.0 / (r * _split(x, 1)))
-                    rules["RL2"] = (key, lambda x, r=r: 1.0 / (r * _split(x, 2)))
+                    rules["RL1"] = ("G", ("o1",), key, lambda x, r=r: 1.0 / (r * _split(x, 1)))
+                    rules["RL2"] = ("G", ("o2",), key, lambda x, r=r: 1.0 / (r * _split(x, 2)))
                 else:
                     g = st.load_small_signal.gm
-                    rules["M3.gm"] = (key, lambda x, g=g: g * _split(x, 1))
-                    rules["M4.gm"] = (key, lambda x, g=g: g * _split(x, 2))
+                    rules["M3.gm"] = ("VCCS", (), key, lambda x, g=g: g * _split(x, 1))
+                    rules["M4.gm"] = ("VCCS", (), key, lambda x, g=g: g * _split(x, 2))
             elif key == "mismatch.gm":
                 g = st.operating_point.small_signal.gm
-                rules["Q1.gm"] = (key, lambda x, g=g: g * _split(x, 1))
-                rules["Q2.gm"] = (key, lambda x, g=g: g * _split(x, 2))
+                rules["Q1.gm"] = ("VCCS", (), key, lambda x, g=g: g * _split(x, 1))
+                rules["Q2.gm"] = ("VCCS", (), key, lambda x, g=g: g * _split(x, 2))
             elif key in ("tail.resistance", "tail.capacitance"):
                 if d.tail.type != "norton":
                     raise DesignError(f"{key}: only a norton tail has this value "
                                       f"(tail.type = {d.tail.type!r})")
                 if key == "tail.resistance":
-                    rules["Rtail"] = (key, lambda x: 1.0 / x)
+                    rules["Rtail"] = ("G", (TAIL_NODE,), key, lambda x: 1.0 / x)
                 else:
-                    rules["Ctail"] = (key, lambda x: x)
+                    rules["Ctail"] = ("C", (TAIL_NODE,), key, lambda x: x)
             elif key == "load.capacitance":
-                labels = ("CL1", "CL2") if d.load.type == "resistor" else ("CL",)
-                for lab in labels:
-                    rules[lab] = (key, lambda x: x)
+                at = (("CL1", "o1"), ("CL2", "o2")) if d.load.type == "resistor" else \
+                    (("CL", "o2"),)
+                for lab, node in at:
+                    rules[lab] = ("C", (node, GROUND), key, lambda x: x)
+        found = {lab: self._element(kind, lab, nodes)
+                 for lab, (kind, nodes, _, _) in rules.items()}
+        # a device's body transconductance follows its g_m (the same mismatch factor)
+        partners = {lab: [e for e in (self._element("VCCS", lab[:-3] + ".gmb"),) if e]
+                    if lab.endswith(".gm") else [] for lab in rules}
         # elements absent from the nominal network (a zero capacitance) carry no rule;
         # a relative spread around zero keeps them zero (checked in deltas()).
-        self._absent = {lab: key for lab, (key, _) in rules.items() if lab not in self._by_label}
-        return {lab: rule for lab, rule in rules.items() if lab in self._by_label}
+        self._absent = {lab: rules[lab][2] for lab, e in found.items() if e is None}
+        return {lab: (found[lab], key, fn, partners[lab]) for lab, (_, _, key, fn)
+                in rules.items() if found[lab] is not None}
 
     # ------------------------------------------------------------ per sample
     def deltas(self, values: dict[str, np.ndarray]):
@@ -275,7 +347,9 @@ class BatchEvaluator:
         return dG, dC
 
     def _blocks(self, H):
-        return H[..., :2, :2], H[..., :2, 2:], H[..., 2:, :2], H[..., 2:, 2:]
+        """``(H0, P, Q, K)`` of the solver's ``[L; Vᵀ] A⁻¹ [drives, U]``."""
+        o, e = self.n_out, len(DRIVES)
+        return H[..., :o, :e], H[..., :o, e:], H[..., o:, :e], H[..., o:, e:]
 
     def _combine(self, H0, P, Q, K, D):
         """H = H0 − P (I + D K)⁻¹ D Q for every sample (used at DC).
@@ -290,8 +364,9 @@ class BatchEvaluator:
         """
         r = self.rank
         lead = D.shape[:-1]
+        n_o, n_e = H0.shape[-2:]
         if r == 0:
-            return np.broadcast_to(H0, lead + (2, 2)).copy()
+            return np.broadcast_to(H0, lead + (n_o, n_e)).copy()
         Dm = np.ascontiguousarray(np.moveaxis(D, -1, 0))  # (r, *lead)
 
         def front(X):   # (..., a, b) broadcast to lead, matrix axes first: (a, b, *lead)
@@ -303,7 +378,7 @@ class BatchEvaluator:
         M = np.ascontiguousarray(Dm[:, None] * Km)       # (r, r, *lead), contiguous
         for i in range(r):
             M[i, i] += 1.0
-        R = np.ascontiguousarray(Dm[:, None] * Qm)       # (r, 2, *lead)
+        R = np.ascontiguousarray(Dm[:, None] * Qm)       # (r, n_e, *lead)
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             for k in range(r):
                 inv = 1.0 / M[k, k]
@@ -319,20 +394,25 @@ class BatchEvaluator:
                 R[k] = acc / M[k, k]
         # H = H0 - P X ; P[..., a, j] X[j, b]
         Pm = front(P)
-        H = np.array(np.broadcast_to(front(H0), (2, 2) + lead), dtype=complex)
-        for a in range(2):
+        H = np.array(np.broadcast_to(front(H0), (n_o, n_e) + lead), dtype=complex)
+        for a in range(n_o):
             for j in range(r):
                 H[a] -= Pm[a, j] * R[j]
         return np.moveaxis(H, (0, 1), (-2, -1))
 
     def _gains(self, H) -> BatchGains:
-        """Named gains from ``H[..., row, col]``, rows [o1 − o2, o2], columns [DM, CM]."""
+        """Named gains from ``H[..., row, col]``, rows [o1 − o2, o2(, out)], columns
+        [DM, CM, vpos, vneg]."""
         bal = self.balanced
+        so = self.n_out - 1
         return BatchGains(
             adm=H[..., 0, 0].copy() if bal else None,
             adm_se=H[..., 1, 0].copy(),
             acm_se=H[..., 1, 1].copy(),
             acm_dm=H[..., 0, 1].copy() if bal else None,
+            a_se=H[..., so, 0].copy(),
+            a_vpos=H[..., so, 2].copy(),
+            a_vneg=H[..., so, 3].copy(),
         )
 
     def dc(self, dG: np.ndarray) -> BatchGains:
@@ -341,8 +421,10 @@ class BatchEvaluator:
         return self._gains(self._combine(H0, P, Q, K, dG.astype(complex)))
 
     # ------------------------------------------------------------ on a grid
-    def _plan(self, s: np.ndarray, polys: tuple = tuple(range(len(_POLYS)))) -> "_GridPlan":
-        """The per-frequency coefficients of one grid (cached; a few grids kept)."""
+    def _plan(self, s: np.ndarray, polys: tuple | None = None) -> "_GridPlan":
+        """The per-frequency coefficients of one grid (cached; a few grids kept);
+        ``polys`` default :attr:`all_polys`."""
+        polys = self.all_polys if polys is None else tuple(polys)
         key = (s.tobytes(), polys)
         with self._plans_lock:
             plan = self._plans.get(key)
@@ -372,7 +454,7 @@ class BatchEvaluator:
                 raise DesignError(f"curve = {name!r}: unknown (choose from {', '.join(CURVES)})")
             if name in BALANCED_CURVES and not self.balanced:
                 raise DesignError(f"curve = {name!r}: this stage has no balanced output")
-            need.update(_CURVE_POLYS[name][:2])
+            need.update(self._curve_polys[name][:2])
         return tuple(sorted(need))
 
     def monomials_of(self, dG: np.ndarray, dC: np.ndarray) -> np.ndarray:
@@ -399,7 +481,7 @@ class BatchEvaluator:
         n = mono.shape[0]
         p0 = plans[0]
         rows, n_f, n_poly = p0.rows, p0.n_f, len(p0.polys)
-        num, den = (p0.polys.index(p) for p in _CURVE_POLYS["cmrr_se_db"][:2])
+        num, den = (p0.polys.index(p) for p in self._curve_polys["cmrr_se_db"][:2])
         sizes = np.bincount(group, minlength=len(plans))
         n_blocks = -(-sizes // rows)                       # blocks per plan
         first = np.concatenate([[0], np.cumsum(n_blocks)[:-1]])
@@ -443,7 +525,7 @@ class BatchEvaluator:
 
     def _expansions(self, s, dG, dC, plan=None):
         """Yield ``(lo, hi, re, im)``: the polynomials of ``plan`` (default: the
-        determinant and all numerators, in :data:`_POLYS` order) of samples
+        determinant and all numerators, :attr:`all_polys`) of samples
         ``lo … hi−1`` as real and imaginary parts, each ``(hi−lo, n_poly, n_f)``.
 
         One real matrix product per block of samples, zero-padded to the plan's
@@ -468,14 +550,23 @@ class BatchEvaluator:
         """Gains of every sample at every ``s`` [rad/s]; arrays ``(n_samples, n_f)``."""
         s = np.atleast_1d(np.asarray(s, dtype=complex))
         n = dG.shape[0]
-        H = np.empty((n, 4, s.size), dtype=complex)
-        for lo, hi, re, im in self._expansions(s, dG, dC):
+        plan = self._plan(s)
+        H = np.empty((n, len(plan.polys), s.size), dtype=complex)
+        for lo, hi, re, im in self._expansions(s, dG, dC, plan):
             poly = re + 1j * im
             with np.errstate(divide="ignore", invalid="ignore"):
-                H[lo:hi] = poly[:, 1:] / poly[:, :1]
-        return self._gains(np.moveaxis(H.reshape(n, 2, 2, s.size), -1, 1))
+                H[lo:hi] = poly / poly[:, :1]
+        row = {p: i for i, p in enumerate(plan.polys)}
 
-    def db_on_grid(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray, ref: np.ndarray,
+        def gain(name):
+            p = _POLYS.index(name)
+            return H[:, row[self.poly_alias.get(p, p)]].copy()
+        bal = self.balanced
+        return BatchGains(adm=gain("adm") if bal else None, adm_se=gain("adm_se"),
+                          acm_se=gain("acm_se"), acm_dm=gain("acm_dm") if bal else None,
+                          a_se=gain("a_se"), a_vpos=gain("a_vpos"), a_vneg=gain("a_vneg"))
+
+    def db_on_grid(self, s: np.ndarray, dG: np.ndarray, dC: np.ndarray, ref,
                    names=("cmrr_se_db",), plan=None) -> dict:
         """Curves [dB] of every sample at every ``s`` [rad/s].
 
@@ -485,9 +576,12 @@ class BatchEvaluator:
             Complex frequencies [rad/s].
         dG, dC : ndarray (n_samples, rank)
             From :meth:`deltas`.
-        ref : ndarray (n_samples,)
+        ref : ndarray (n_samples,) or dict of str → ndarray (n_samples,)
             Each sample's |A_dm(0)|: a common-mode gain below 1e-12 of it is zero
-            to rounding (DESIGN.md §2): its CMRR +inf, its own dB value −inf.
+            to rounding (DESIGN.md §2): its CMRR +inf, its own dB value −inf. A
+            dict gives each curve its own reference (missing names: ``ref[None]``);
+            a PSRR's is |A_se(0)| (A_dm,se or A_total, DESIGN.md §7f): a rail gain
+            below 1e-12 of it makes the PSRR +inf.
         names : sequence of str
             From :data:`CURVES`.
         plan : optional
@@ -508,21 +602,31 @@ class BatchEvaluator:
         row = {p: i for i, p in enumerate(plan.polys)}
         n = dG.shape[0]
         out = {name: np.empty((n, s.size)) for name in names}
-        tiny = (ZERO_GAIN_RATIO * np.asarray(ref, dtype=float)) ** 2
-        power = tmp = floor = zero = None
+        refs = ref if isinstance(ref, dict) else {None: ref}
+        tinies: dict = {}                          # one floor per distinct reference
+        for name in names:
+            r = refs.get(name, refs.get(None))
+            if r is None:
+                raise ValueError(f"no zero-to-rounding reference for {name}")
+            tinies.setdefault(id(r), (ZERO_GAIN_RATIO * np.asarray(r, dtype=float)) ** 2)
+        which = {name: id(refs.get(name, refs.get(None))) for name in names}
+        power = tmp = floors = zero = None
         for lo, hi, re, im in self._expansions(s, dG, dC, plan):
             if power is None or power.shape != re.shape:       # buffers, reused per block
                 power, tmp = np.empty(re.shape), np.empty(re.shape)
-                floor, zero = np.empty(re.shape[::2]), np.empty(re.shape[::2], dtype=bool)
+                floors = {k: np.empty(re.shape[::2]) for k in tinies}
+                zero = np.empty(re.shape[::2], dtype=bool)
             np.multiply(re, re, out=power)         # |polynomial|², (rows, n_poly, n_f)
             np.multiply(im, im, out=tmp)
             power += tmp
             det = power[:, row[0]]
-            np.multiply(tiny[lo:hi, None], det, out=floor)
+            for k, tiny in tinies.items():
+                np.multiply(tiny[lo:hi, None], det, out=floors[k])
             with np.errstate(invalid="ignore"):
                 singular = not (det.min() > 0 and det.max() < np.inf)
             for name in names:
-                num, den, test = _CURVE_POLYS[name]
+                num, den, test = self._curve_polys[name]
+                floor = floors[which[name]]
                 val = out[name][lo:hi]
                 pn, pd = power[:, row[num]], power[:, row[den]]
                 with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
@@ -552,7 +656,7 @@ class BatchEvaluator:
         a time in a batch, so results never depend on how many points a chunk holds.
         """
         s = np.atleast_1d(np.asarray(s, dtype=complex))
-        H = np.zeros((s.size, 2, 2), dtype=complex)
+        H = np.zeros((s.size, self.n_out, len(DRIVES)), dtype=complex)
         for lo in range(0, s.size, SOLVE_BLOCK):          # bounds the n × n matrices held
             sl = slice(lo, lo + SOLVE_BLOCK)
             sb = s[sl]
@@ -584,7 +688,7 @@ class _GridPlan:
 
     weights: np.ndarray
     rows: int
-    polys: tuple = tuple(range(len(_POLYS)))
+    polys: tuple
 
     @property
     def n_f(self) -> int:
@@ -592,7 +696,7 @@ class _GridPlan:
 
     @classmethod
     def build(cls, ev: BatchEvaluator, s: np.ndarray, polys=None, rows=None) -> "_GridPlan":
-        polys = tuple(range(len(_POLYS))) if polys is None else tuple(polys)
+        polys = ev.all_polys if polys is None else tuple(polys)
         n_f = s.size
         w = cls._weights(ev, s, ev.solver.response(s), polys)   # (n_mono, n_poly, n_f)
         weights = np.ascontiguousarray(
@@ -630,19 +734,20 @@ class _GridPlan:
     def _weights(ev: BatchEvaluator, s: np.ndarray, H: np.ndarray, polys: tuple) -> np.ndarray:
         """Monomial weights ``(n_mono, n_poly, n_f)`` from the nominal responses ``H``."""
         r, n_f = ev.rank, s.size
-        pairs = {1: (0, 0), 2: (0, 1), 3: (1, 0), 4: (1, 1)}   # poly → (output, drive)
+        n_o, n_e = ev.n_out, len(DRIVES)     # K's rows and columns follow the outputs, drives
         subsets = list(itertools.product((False, True), repeat=r))
         minors = {sub: np.empty((len(polys), n_f), dtype=complex) for sub in subsets}
         # one determinant call per matrix size: every (subset, polynomial) minor of that size
         by_size: dict[int, list] = {}
         for sub in subsets:
-            idx = [2 + k for k in range(r) if sub[k]]
+            idx_r = [n_o + k for k in range(r) if sub[k]]
+            idx_c = [n_e + k for k in range(r) if sub[k]]
             for i, p in enumerate(polys):
                 if p == 0:
-                    rows_, cols_ = idx, idx
+                    rows_, cols_ = idx_r, idx_c
                 else:
-                    a, b = pairs[p]
-                    rows_, cols_ = idx + [a], idx + [b]
+                    a, b = ev._pairs[p]          # (output row, drive column)
+                    rows_, cols_ = idx_r + [a], idx_c + [b]
                 if not rows_:
                     minors[sub][i] = 1.0
                 else:

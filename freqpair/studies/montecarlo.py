@@ -1,4 +1,5 @@
-"""Monte Carlo mismatch: CMRR(f) percentile bands, DC CMRR and corner spreads, yield.
+"""Monte Carlo mismatch: CMRR(f) and PSRR(f) percentile bands, DC CMRR, PSRR and corner
+spreads, yield.
 
 A :class:`MonteCarloSpec` gives a spread per design key; :func:`run_montecarlo`
 draws ``n`` sampled designs and evaluates them all in batches
@@ -20,9 +21,10 @@ sample and are not batched.
 
 Streaming reductions: a chunk does not hand back its samples' curves but
 mergeable summaries (:class:`MonteCarloSummary`): per-frequency histograms of
-each banded curve on bins of 1/256 dB, histograms of the DC CMRRs (same bins)
-and of log10 of the corner frequency (bins of 2^-17 decade), and integer
-counts for the requested yields (:class:`~freqpair.studies.histogram.BinnedCounts`).
+each banded curve on bins of 1/256 dB, histograms of the DC CMRRs (same bins;
+the DC PSRRs too when a PSRR curve is banded) and of log10 of the corner
+frequency (bins of 2^-17 decade), and integer counts for the requested yields
+(:class:`~freqpair.studies.histogram.BinnedCounts`).
 Merging adds integers, so the answer does not depend on the order chunks
 finish in, on the chunk size or on the executor. The client's memory follows
 the spread of the values, not the number of samples. Every sample can still
@@ -47,8 +49,8 @@ from typing import Callable
 import numpy as np
 from scipy.special import ndtri
 
-from freqpair.studies.batch import BALANCED_CURVES, BATCH_KEYS, CURVES, BatchEvaluator, \
-    single_threaded_blas
+from freqpair.studies.batch import BALANCED_CURVES, BATCH_KEYS, CURVES, PSRR_CURVES, \
+    BatchEvaluator, single_threaded_blas
 from freqpair.studies.histogram import DB_BIN, DECADE_BIN, BinnedCounts
 from freqpair.design.keys import get_value, replace_value
 from freqpair.design.errors import FreqpairError
@@ -60,7 +62,7 @@ from freqpair.analysis.responses import ZERO_GAIN_RATIO
 __all__ = ["Spread", "MonteCarloSpec", "MonteCarloChunk", "MonteCarloSummary",
            "MonteCarloResult", "run_chunk", "reduce_chunk", "run_montecarlo", "sample_values",
            "sampled_design", "default_grid", "parse_spread", "BLOCK", "MonteCarloError",
-           "TASK_CHUNKS", "CURVES", "BALANCED_CURVES"]
+           "TASK_CHUNKS", "CURVES", "BALANCED_CURVES", "PSRR_CURVES"]
 
 #: Samples per random-number block (fixed: part of the reproducibility contract).
 BLOCK = 1024
@@ -237,6 +239,8 @@ class MonteCarloChunk:
     mode gain zero to rounding); ``corner_hz`` +inf where the CMRR never falls
     3 dB (or is infinite). ``curves`` maps curve names (:data:`CURVES`) to
     ``(n, n_f)`` arrays [dB]; ``cmrr_db_f`` is None without a balanced output.
+    ``psrr_pos_dc_db``, ``psrr_neg_dc_db`` (+inf where the rail's gain is zero to
+    rounding) only when that PSRR curve was computed.
     """
 
     start: int
@@ -250,6 +254,8 @@ class MonteCarloChunk:
     cmrr_dc_db: np.ndarray | None
     curves: dict
     corner_hz: np.ndarray
+    psrr_pos_dc_db: np.ndarray | None = None
+    psrr_neg_dc_db: np.ndarray | None = None
 
     @property
     def cmrr_se_db_f(self) -> np.ndarray:
@@ -500,14 +506,21 @@ def run_chunk(design, spec: MonteCarloSpec, start: int, stop: int, seed: int,
         raise MonteCarloError(f"sample {start + bad}: the sampled network is singular")
     cmrr_se_dc = _ratio_db(dc.adm_se, dc.acm_se, ref)
     cmrr_dc = _ratio_db(dc.adm, dc.acm_dm, ref) if bal else None
+    # PSRR± (DESIGN.md §7f): A_se = A_dm,se or A_total; a rail gain below 1e-12·|A_se(0)|
+    # is zero to rounding (the PSRR +inf), at DC and on the grid alike
+    ref_se = np.abs(dc.a_se)
+    psrr_dc = {name: _ratio_db(dc.a_se, rail, ref_se) if name in names else None
+               for name, rail in zip(PSRR_CURVES, (dc.a_vpos, dc.a_vneg))}
+    refs = {None: ref, **{name: ref_se for name in PSRR_CURVES}}
     # curves: blocks of a fixed number of samples inside (memory bounded by the block)
-    out = ev.db_on_grid(s_of_hz(f_hz), dG, dC, ref, names)
+    out = ev.db_on_grid(s_of_hz(f_hz), dG, dC, refs, names)
     for arr in out.values():
         if np.isnan(arr).any():
             raise MonteCarloError("a sampled network is singular at some frequency")
     corner = eng.corners(out["cmrr_se_db"], cmrr_se_dc - DB_3, dG, dC, ref)
     return MonteCarloChunk(start, stop, values, dc.adm, dc.adm_se, dc.acm_se, dc.acm_dm,
-                           cmrr_se_dc, cmrr_dc, out, corner)
+                           cmrr_se_dc, cmrr_dc, out, corner, psrr_dc["psrr_pos_db"],
+                           psrr_dc["psrr_neg_db"])
 
 
 # ---------------------------------------------------------------- reductions
@@ -536,7 +549,11 @@ def _interpolate(curve: np.ndarray, j: int, t: float) -> np.ndarray:
         return (1.0 - t) * curve[:, j] + t * curve[:, j + 1]
 
 
-_OUTPUTS = {"se": "cmrr_se_db", "balanced": "cmrr_db"}
+#: yield outputs → the curve they read: single-ended or balanced CMRR, PSRR+ or PSRR−
+_OUTPUTS = {"se": "cmrr_se_db", "balanced": "cmrr_db", "psrr_pos": "psrr_pos_db",
+            "psrr_neg": "psrr_neg_db"}
+#: banded PSRR curve → its DC statistic (counted when the curve is banded)
+_PSRR_DC = {"psrr_pos_db": "psrr_pos_dc_db", "psrr_neg_db": "psrr_neg_dc_db"}
 
 
 @dataclass(frozen=True)
@@ -570,7 +587,8 @@ class MonteCarloSummary:
     curves : dict of str → BinnedCounts
         Per banded curve, one histogram per frequency (bins of 1/256 dB).
     dc : dict of str → BinnedCounts
-        ``cmrr_se_dc_db`` (and ``cmrr_dc_db`` with a balanced output), one row.
+        ``cmrr_se_dc_db`` (and ``cmrr_dc_db`` with a balanced output;
+        ``psrr_pos_dc_db``, ``psrr_neg_dc_db`` when that PSRR curve is banded), one row.
     corner : BinnedCounts
         log10 of the single-ended CMRR corner [Hz] (bins of 2^-17 decade; +inf
         where the CMRR never falls 3 dB).
@@ -593,6 +611,9 @@ class MonteCarloSummary:
         dc = {"cmrr_se_dc_db": BinnedCounts.of(ch.cmrr_se_dc_db, DB_BIN)}
         if ch.cmrr_dc_db is not None:
             dc["cmrr_dc_db"] = BinnedCounts.of(ch.cmrr_dc_db, DB_BIN)
+        for curve, name in _PSRR_DC.items():
+            if curve in request.curves:
+                dc[name] = BinnedCounts.of(getattr(ch, name), DB_BIN)
         corner = BinnedCounts.of(np.log10(ch.corner_hz), DECADE_BIN)
         counts = np.array([np.count_nonzero(_interpolate(ch.curves[_OUTPUTS[out]], j, t) >= spec)
                            for (spec, _, out), (j, t) in zip(request.yields, request.positions)],
@@ -617,6 +638,9 @@ class MonteCarloSummary:
         dc = {"cmrr_se_dc_db": BinnedCounts(DB_BIN, 1)}
         if balanced:
             dc["cmrr_dc_db"] = BinnedCounts(DB_BIN, 1)
+        for curve, name in _PSRR_DC.items():
+            if curve in request.curves:
+                dc[name] = BinnedCounts(DB_BIN, 1)
         return cls(0, {name: BinnedCounts(DB_BIN, n_f) for name in request.curves}, dc,
                    BinnedCounts(DECADE_BIN, 1), np.zeros(len(request.yields), dtype=np.int64))
 
@@ -650,14 +674,15 @@ def _fin(v):
     return v if math.isfinite(v) else None
 
 
-_SAMPLE_FIELDS = ("cmrr_se_dc_db", "cmrr_dc_db", "corner_hz", "dc_adm", "dc_acm_dm")
+_SAMPLE_FIELDS = ("cmrr_se_dc_db", "cmrr_dc_db", "corner_hz", "dc_adm", "dc_acm_dm",
+                  "psrr_pos_dc_db", "psrr_neg_dc_db")
 
 
 @dataclass(frozen=True)
 class MonteCarloResult:
     """Statistics of a Monte Carlo run (and its samples, when kept).
 
-    Percentiles (bands, DC CMRR, corner) follow numpy's default definition —
+    Percentiles (bands, DC CMRR and PSRR, corner) follow numpy's default definition —
     linear interpolation between the order statistics at rank (n − 1)·q/100 —
     with the order statistics read from the run's histograms: within 1/256 dB
     (0.0039 dB) of the exact ones for values in dB, within 1.8e-5 relative for
@@ -673,13 +698,16 @@ class MonteCarloResult:
         Each banded curve [dB] at each percentile and frequency (+inf = infinite).
     band_cmrr_se_db, band_cmrr_db : ndarray (n_p, n_f)
         The CMRR bands (``band_cmrr_db`` None without a balanced output).
+    band_psrr_pos_db, band_psrr_neg_db : ndarray (n_p, n_f) or None
+        The PSRR bands, when banded (``curves=("psrr_neg_db", …)``).
     summary : MonteCarloSummary
         The merged histograms and yield counts (any other percentile can be
         read from them: :meth:`percentile`, :meth:`band_percentile`).
     yields : tuple of (spec_db, at_hz, output, fraction)
         The yields requested from :func:`run_montecarlo`.
     cmrr_se_dc_db, cmrr_dc_db, corner_hz, cmrr_se_db_f, cmrr_db_f, values, curves, ...
-        Per-sample arrays, only with ``keep_samples=True`` (else None).
+        Per-sample arrays, only with ``keep_samples=True`` (else None);
+        ``psrr_pos_dc_db``, ``psrr_neg_dc_db`` where that PSRR was computed.
     """
 
     n: int
@@ -697,6 +725,8 @@ class MonteCarloResult:
     corner_hz: np.ndarray | None = field(default=None, repr=False)
     dc_adm: np.ndarray | None = field(default=None, repr=False)
     dc_acm_dm: np.ndarray | None = field(default=None, repr=False)
+    psrr_pos_dc_db: np.ndarray | None = field(default=None, repr=False)
+    psrr_neg_dc_db: np.ndarray | None = field(default=None, repr=False)
 
     # ------------------------------------------------------------ bands
     @property
@@ -706,6 +736,14 @@ class MonteCarloResult:
     @property
     def band_cmrr_db(self) -> np.ndarray | None:
         return self.bands.get("cmrr_db")
+
+    @property
+    def band_psrr_pos_db(self) -> np.ndarray | None:
+        return self.bands.get("psrr_pos_db")
+
+    @property
+    def band_psrr_neg_db(self) -> np.ndarray | None:
+        return self.bands.get("psrr_neg_db")
 
     @property
     def cmrr_se_db_f(self) -> np.ndarray | None:
@@ -755,27 +793,33 @@ class MonteCarloResult:
     def yield_fraction(self, spec_db: float, at_hz: float, output: str = "se") -> float:
         """Fraction of samples whose CMRR at ``at_hz`` [Hz] is ≥ ``spec_db`` [dB].
 
-        ``output`` is ``"se"`` (single-ended, default) or ``"balanced"``. Between
+        ``output`` is ``"se"`` (single-ended CMRR, default), ``"balanced"``, or
+        ``"psrr_pos"`` / ``"psrr_neg"`` (that PSRR ≥ ``spec_db``). Between
         grid points each sample's CMRR curve is interpolated linearly in log10 f.
         The spec must have been requested from :func:`run_montecarlo`
         (``yields=[(spec_db, at_hz)]``) — counted exactly as the samples went by —
         or the samples kept (``keep_samples=True``).
         """
+        if output not in _OUTPUTS:
+            raise MonteCarloError(f"output = {output!r}: choose from "
+                                  f"{', '.join(map(repr, _OUTPUTS))}")
         self._curve_name(output)
         for spec, at, out, frac in self.yields:
             if out == output and spec == float(spec_db) and \
                     math.isclose(at, float(at_hz), rel_tol=1e-9):
                 return frac
-        if self.curves is not None:
+        if self.curves is not None and _OUTPUTS[output] in self.curves:
             j, t = _position(self.f_hz, at_hz, "at_hz")
             return float(np.mean(_interpolate(self.curves[_OUTPUTS[output]], j, t) >= spec_db))
+        extra = "" if output == "se" else f", {output!r}"
         raise MonteCarloError(f"yield at {spec_db:g} dB, {at_hz:g} Hz ({output}) was not "
-                              f"counted in this run: pass yields=[({spec_db!r}, {at_hz!r})] to "
-                              "run_montecarlo (or keep_samples=True)")
+                              f"counted in this run: pass yields=[({spec_db!r}, {at_hz!r}{extra})] "
+                              "to run_montecarlo (or keep_samples=True)")
 
     # ------------------------------------------------------------ scalar statistics
     def percentile(self, name: str, q) -> np.ndarray:
-        """Percentiles ``q`` [%] of ``"cmrr_se_dc_db"``, ``"cmrr_dc_db"`` [dB] or
+        """Percentiles ``q`` [%] of ``"cmrr_se_dc_db"``, ``"cmrr_dc_db"``,
+        ``"psrr_pos_dc_db"``, ``"psrr_neg_dc_db"`` [dB] (the PSRRs when banded) or
         ``"cmrr_corner_hz"`` [Hz] (+inf where infinite)."""
         q = np.atleast_1d(np.asarray(q, dtype=float))
         if name == "cmrr_corner_hz":
@@ -810,6 +854,9 @@ class MonteCarloResult:
             "corner_never_falls_fraction": self.corner_never_falls_fraction,
             "f_hz": [float(f) for f in self.f_hz],
         }
+        for name in _PSRR_DC.values():               # DC PSRR± when their curve is banded
+            if name in self.summary.dc:
+                out[name] = self.stats(name)
         for name, band in self.bands.items():
             out[f"band_{name}"] = {f"p{q:g}": [_fin(v) for v in row]
                                    for q, row in zip(self.percentiles, band)}
@@ -829,7 +876,8 @@ def _check_yields(yields, f: np.ndarray, balanced: bool) -> tuple:
             raise MonteCarloError(f"yields: {item!r}: give (spec_db, at_hz[, output])") from None
         output = rest[0] if rest else "se"
         if output not in _OUTPUTS or len(rest) > 1:
-            raise MonteCarloError(f"yields: {item!r}: output must be 'se' or 'balanced'")
+            raise MonteCarloError(f"yields: {item!r}: output must be one of "
+                                  f"{', '.join(map(repr, _OUTPUTS))}")
         if output == "balanced" and not balanced:
             raise MonteCarloError(f"yields: {item!r}: this stage has no balanced output")
         spec_db, at_hz = float(spec_db), float(at_hz)
@@ -874,11 +922,15 @@ def run_montecarlo(design, spec: MonteCarloSpec, n: int, seed: int, f_hz=None,
     yields : sequence of (spec_db, at_hz) or (spec_db, at_hz, output)
         Yield specs counted as the samples go by (:meth:`MonteCarloResult.yield_fraction`):
         CMRR ≥ spec_db [dB] at at_hz [Hz], ``output`` ``"se"`` (default) or
-        ``"balanced"``; at_hz between grid points interpolates each sample's
-        curve linearly in log10 f.
+        ``"balanced"`` (or PSRR ≥ spec_db: ``"psrr_pos"``, ``"psrr_neg"``); at_hz
+        between grid points interpolates each sample's curve linearly in log10 f.
     curves : sequence of str, optional
         Curves to band (:data:`CURVES`: ``cmrr_se_db``, ``cmrr_db``, ``adm_db``,
-        ``adm_se_db``, ``acm_se_db``, ``acm_dm_db``); default the CMRRs.
+        ``adm_se_db``, ``acm_se_db``, ``acm_dm_db``, ``psrr_pos_db``,
+        ``psrr_neg_db``); default the CMRRs. A banded PSRR also gives the spread
+        of its DC value (``percentile("psrr_neg_dc_db", q)``). PSRR± are read at
+        the single-ended output (o2, or ``out`` with a second stage) against
+        A_dm,se (or A_total), as :func:`freqpair.analysis.supply.psrr_db`.
     keep_samples : bool
         Also keep every sample (values, DC gains, CMRRs, corner and curves):
         8 bytes per sample and frequency per computed curve — 10⁶ samples × 100
