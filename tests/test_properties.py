@@ -247,9 +247,16 @@ def test_swapping_the_sides_mismatch_flips_acm_dm_and_keeps_cmrr(d, dl, dg):
     if abs(da.acm_dm[0]) <= 1e-12 * abs(da.adm[0]):   # zero CM gain (e.g. MOS, ideal tail)
         assert abs(db_.acm_dm[0]) <= 1e-12 * abs(db_.adm[0])
         return
-    cmrr_a = abs(da.adm[0] / da.acm_dm[0])
-    cmrr_b = abs(db_.adm[0] / db_.acm_dm[0])
-    assert math.isclose(cmrr_a, cmrr_b, rel_tol=1e-6)
+    # A_cm-dm is a difference of two outputs, so its absolute error sits at the
+    # rounding floor of |A_dm| (about 1e-16 of it); a 200 dB CMRR then only agrees
+    # to ~1e-6 relative. Compare the common-mode-to-differential gains with that
+    # floor, and the CMRR to 1e-6 where it is well above the floor.
+    floor = 1e-13 * abs(da.adm[0])
+    assert math.isclose(abs(da.acm_dm[0]), abs(db_.acm_dm[0]), rel_tol=1e-6, abs_tol=floor)
+    if abs(da.acm_dm[0]) > 1e4 * floor:
+        cmrr_a = abs(da.adm[0] / da.acm_dm[0])
+        cmrr_b = abs(db_.adm[0] / db_.acm_dm[0])
+        assert math.isclose(cmrr_a, cmrr_b, rel_tol=1e-6)
 
 
 _CAP_KEYS = {"cje", "cjc0", "ccs", "transit_time", "cox", "overlap_cap", "cdb", "capacitance",
