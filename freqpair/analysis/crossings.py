@@ -24,12 +24,15 @@ F_MAX_HZ = 1e18
 
 def db(x) -> np.ndarray:
     """20·log10|x| [dB]; zero maps to −inf (callers turn that into null)."""
-    with np.errstate(divide="ignore"):
-        return 20.0 * np.log10(np.abs(x))
+    mag = np.abs(x)
+    if np.all(mag > 0):                        # the usual case: no zero to guard
+        return 20.0 * np.log10(mag)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return 20.0 * np.log10(mag)
 
 
 def search_grid(pole_rad_s: np.ndarray, f_lo_hz: float, f_hi_hz: float,
-                points_per_decade: int = 60) -> np.ndarray:
+                points_per_decade: int = 40) -> np.ndarray:
     """Log grid [Hz] from 3 decades below the slowest natural frequency to 3
     decades above the fastest (and at least the sweep range)."""
     mags = np.abs(pole_rad_s) / (2 * np.pi)
@@ -86,5 +89,5 @@ def lowest_crossing(curve_db: Callable[[np.ndarray], np.ndarray], level_db: floa
         return float(grid_hz[i] if abs(ga) <= abs(gb) else grid_hz[i + 1])
     if ga == 0 or gb == 0:
         return float(grid_hz[i] if ga == 0 else grid_hz[i + 1])
-    x = brent_root(g, a, b, xtol=1e-14, rtol=1e-14, maxiter=200)
+    x = brent_root(g, a, b, xtol=1e-13, rtol=1e-13, maxiter=200, fa=ga, fb=gb)
     return 10.0 ** x

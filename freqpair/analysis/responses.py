@@ -163,12 +163,15 @@ class StageResponses:
             zin_cm=zin_cm,
         )
 
-    def at(self, f_hz, rails_only: bool = False, signal_only: bool = False) -> ResponseSet:
+    def at(self, f_hz, rails_only: bool = False, signal_only: bool = False,
+           refine: bool = True) -> ResponseSet:
         """All gains at frequencies ``f_hz`` [Hz] (batched over frequency).
 
         With ``rails_only`` only the rails' gains ``a_vpos``, ``a_vneg`` are
         solved (the other fields are None); with ``signal_only`` everything but
         them (``a_vpos``, ``a_vneg`` None): each half the work of a full sweep.
+        ``refine=False`` skips the solver's refinement step (for bracketing
+        scans: see :meth:`~freqpair.circuit.network.FrequencySolver.response`).
         """
         f = np.atleast_1d(np.asarray(f_hz, dtype=float))
         if rails_only or signal_only:
@@ -176,8 +179,8 @@ class StageResponses:
             sub = self._parts.get(part)
             if sub is None:
                 sub = self._parts[part] = self.solver.with_inputs(cols)
-            return self._assemble(f, sub.response(s_of_hz(f)), part)
-        return self._assemble(f, self.solver.response(s_of_hz(f)))
+            return self._assemble(f, sub.response(s_of_hz(f), refine), part)
+        return self._assemble(f, self.solver.response(s_of_hz(f), refine))
 
     def dc(self) -> ResponseSet:
         """All gains at s = 0 exactly (direct solve of G)."""

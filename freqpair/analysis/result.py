@@ -210,7 +210,9 @@ def _analyze(design: Design) -> Analysis:
               if abs(complex(dc.get(r)[0])) > ZERO_GAIN_RATIO * se0]
     grid = search_grid(np.concatenate([poles, _low_zeros(resp, names, poles)]),
                        design.sweep.start, design.sweep.stop)
-    on_grid = resp.at(grid, signal_only=True)     # the rails are bracketed apart
+    # a bracketing scan (the crossings are root-found on direct solves): the signal
+    # inputs only (the rails are bracketed apart), without the refinement step
+    on_grid = resp.at(grid, signal_only=True, refine=False)
 
     def curve(name):
         # root-finding steps: one direct solve for this gain alone (a third of the

@@ -22,7 +22,8 @@ class RootError(ValueError):
 
 
 def brent_root(f: Callable[[float], float], a: float, b: float, *, xtol: float = 2e-12,
-               rtol: float = 4 * _EPS, maxiter: int = 100) -> float:
+               rtol: float = 4 * _EPS, maxiter: int = 100, fa: float | None = None,
+               fb: float | None = None) -> float:
     """A root of ``f`` in ``[a, b]``, where ``f(a)`` and ``f(b)`` differ in sign.
 
     Parameters
@@ -35,6 +36,8 @@ def brent_root(f: Callable[[float], float], a: float, b: float, *, xtol: float =
         The root is returned once the bracket is below ``xtol + rtol·|x|``.
     maxiter : int
         Iteration limit.
+    fa, fb : float, optional
+        ``f(a)`` and ``f(b)`` when the caller already has them (saves two calls).
 
     Returns
     -------
@@ -47,7 +50,8 @@ def brent_root(f: Callable[[float], float], a: float, b: float, *, xtol: float =
         When ``f(a)·f(b) > 0`` or after ``maxiter`` iterations.
     """
     xpre, xcur = float(a), float(b)
-    fpre, fcur = float(f(xpre)), float(f(xcur))
+    fpre = float(f(xpre)) if fa is None else float(fa)
+    fcur = float(f(xcur)) if fb is None else float(fb)
     if fpre * fcur > 0:
         raise RootError(f"f({a:g}) and f({b:g}) have the same sign")
     if fpre == 0:

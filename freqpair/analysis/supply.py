@@ -86,7 +86,7 @@ def supply_rejection(resp: StageResponses, grid_hz: np.ndarray, on_grid) -> Supp
     # bracket on every third point of the grid (the curves are smooth rationals):
     # the rails' right-hand sides alone, the signal's taken from ``on_grid``
     coarse = grid_hz[::3]
-    rails = resp.at(coarse, rails_only=True)
+    rails = resp.at(coarse, rails_only=True, refine=False)
     sel = slice(None, None, 3)
     on_coarse = _Both(on_grid, rails, sel)
     out = {}
