@@ -583,3 +583,48 @@ def test_a_refused_kind_or_slider_value_puts_the_control_back_on_the_design_show
     # oracle: DESIGN.md §2 — the largest tail current saturates the pair (V_CE < 0.2 V)
     assert "saturated" in ex.message_text and ex.design is shown
     assert slider.value == pytest.approx(before)
+
+
+def test_a_panel_is_computed_only_while_its_view_is_open():
+    # the explorer's contract for lazily computed views (freqpair.app.view.Explorer.add_panel)
+    from bokeh.document import Document
+    from bokeh.models import Div
+
+    from freqpair.app import panels
+    from freqpair.app.view import make_doc
+
+    shown = []
+
+    class Counting:
+        title = "Counting"
+
+        def __init__(self):
+            self.div = Div(name="counting_div")
+
+        def layout(self):
+            return self.div
+
+        def show(self, explorer):
+            shown.append(explorer.design.tail.capacitance)
+            self.div.text = f"{explorer.analysis.f3db_hz:.6g}"
+
+    original = panels.make_panels
+    panels.make_panels = lambda: [Counting()]
+    try:
+        doc = Document()
+        ex = make_doc(doc)
+    finally:
+        panels.make_panels = original
+    views = doc.select_one({"name": "views"})
+    k = [t.title for t in views.tabs].index("Counting")
+    assert shown == []                              # hidden: not computed at start
+    ex.edit("tail.capacitance", "3 pF")
+    assert shown == []                              # hidden: an edit costs nothing
+    views.active = k
+    assert shown == [pytest.approx(3e-12)]          # opened: computed once
+    ex.edit("tail.capacitance", "4 pF")
+    assert shown[-1] == pytest.approx(4e-12)        # open: follows every edit
+    assert doc.select_one({"name": "counting_div"}).text == f"{ex.analysis.f3db_hz:.6g}"
+    views.active = 0
+    ex.edit("tail.capacitance", "5 pF")
+    assert len(shown) == 2                          # hidden again: not computed

@@ -168,6 +168,10 @@ class Explorer:
         self.doc = doc
         self.design = design
         self.data = None
+        self.analysis = None
+        self.panels: list = []    # view panels computed only while shown (see add_panel)
+        self._stale: set = set()
+        self._views = None
         self._syncing = False
         self._downloads = 0
         self.curves = ColumnDataSource(name="curves_source")
@@ -209,6 +213,9 @@ class Explorer:
             src.data = {k: v[:0] for k, v in self.curves.data.items()}
         if note:
             self._say(note, bad=True)
+        from freqpair.app.panels import make_panels
+        for panel in make_panels():
+            self.add_panel(panel)
         doc.title = "freqpair explorer"
         doc.add_root(self._layout())
 
@@ -248,7 +255,7 @@ class Explorer:
                          stylesheets=[InlineStyleSheet(css=_WRAP_CSS)])
         for table in (metrics, hand):
             _redraw_on_new_data(table)
-        main = Tabs(name="views", sizing_mode="stretch_width", tabs=[
+        self._views = main = Tabs(name="views", sizing_mode="stretch_width", tabs=[
             TabPanel(title="Gains", child=column(mag, phase, sizing_mode="stretch_width")),
             TabPanel(title="CMRR", child=column(cmrr, sizing_mode="stretch_width")),
             TabPanel(title="Poles & zeros", child=column(pz, sizing_mode="stretch_width")),
@@ -258,6 +265,10 @@ class Explorer:
                          "formulas; the method column says where one does not hold)</small>"),
                 hand)),
         ])
+        self._fixed_views = len(main.tabs)
+        for panel in self.panels:
+            main.tabs.append(TabPanel(title=panel.title, child=panel.layout()))
+        main.on_change("active", lambda a, o, n: self._view_opened(n))
         sidebar = column(
             row(*self.kind_selects.values()),
             row(self.target_input, Div(text="<small>Type values like <code>4.7 pF</code>, "
@@ -455,8 +466,10 @@ class Explorer:
         measurement = self.measured.measurement
         try:
             target = self._target_db()
+            from freqpair.analysis.result import analyze
+            analysis = analyze(design)
             data = explore(design, explore_grid(design, N_POINTS), target_db=target,
-                           measurement=measurement)
+                           analysis=analysis, measurement=measurement)
         except FreqpairError as exc:
             self._say(f"{exc} — kept the last good result", bad=True)
             return False
@@ -470,8 +483,55 @@ class Explorer:
             return False
         self.design = design
         self.data = data
+        self.analysis = analysis
         self._show(data)
         return True
+
+    # ------------------------------------------------------------- view panels
+    def add_panel(self, panel) -> None:
+        """Add a view that is computed only while it is shown.
+
+        ``panel`` has a ``title`` (its tab's words), ``layout()`` (the Bokeh
+        model, built once, fed from the panel's own data sources) and
+        ``show(explorer)`` (fill those sources from ``explorer.analysis`` and
+        ``explorer.design``). ``show`` runs when the panel's tab is opened and,
+        while it is open, after every accepted change; a hidden panel is only
+        marked stale, so a change costs nothing for views nobody looks at.
+        Panels are added before the layout is built (in :meth:`__init__`).
+        """
+        self.panels.append(panel)
+        self._stale.add(len(self.panels) - 1)
+
+    def _panel_index(self, active):
+        if active is None or self._views is None:
+            return None
+        k = active - self._fixed_views
+        return k if 0 <= k < len(self.panels) else None
+
+    def _refresh_panels(self, active) -> None:
+        """Mark every panel stale and show the open one (called inside a hold)."""
+        self._stale = set(range(len(self.panels)))
+        self._show_panel(self._panel_index(active))
+
+    def _show_panel(self, k) -> None:
+        if k is None or k not in self._stale or self.analysis is None:
+            return
+        try:
+            self.panels[k].show(self)
+        except FreqpairError as exc:
+            self._say(f"{self.panels[k].title}: {exc}", bad=True)
+            return
+        self._stale.discard(k)
+
+    def _view_opened(self, active) -> None:
+        k = self._panel_index(active)
+        if k is None or k not in self._stale:
+            return
+        self.doc.hold("combine")
+        try:
+            self._show_panel(k)
+        finally:
+            self.doc.unhold()
 
     def _measurement_changed(self) -> bool:
         return self.apply(self.design, need_measured=True)
@@ -494,6 +554,7 @@ class Explorer:
                                 f"{_html(name)}</div>")
             self._say(_status(data), bad=False)
             self._label_curves()
+            self._refresh_panels(self._views.active if self._views is not None else None)
         finally:
             self.doc.unhold()
         self._sync_controls()   # outside the hold: its own callbacks are muted here
