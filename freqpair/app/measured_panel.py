@@ -15,6 +15,7 @@ import dataclasses
 import numpy as np
 
 from freqpair.studies.measured import KINDS, MeasurementError, parse_measurement_text
+from freqpair.app.sources import set_columns
 
 __all__ = ["measurement_from_upload", "MeasuredPanel", "MEASURED_COLUMNS", "MAX_FILE_BYTES",
            "upload_text"]
@@ -144,10 +145,11 @@ class MeasuredPanel:
         """Copy the ``measured`` part of an explore result into the source and views."""
         view = data.get("measured") if data else None
         if view is None:
-            self.source.data = {c: [] for c in MEASURED_COLUMNS}
+            set_columns(self.source, {c: [] for c in MEASURED_COLUMNS})
             plot = None
         else:
-            self.source.data = {c: np.asarray(v, float) for c, v in view["columns"].items()}
+            set_columns(self.source, {c: np.asarray(v, float)
+                                      for c, v in view["columns"].items()})
             plot = view["plot"]
         for key, (rng, axis, renderers) in self._views.items():
             on = key == plot

@@ -21,6 +21,7 @@ from freqpair.design.keys import replace_value
 from freqpair.design.errors import DesignError, FreqpairError
 from freqpair.views.explore import (
     KIND_CHOICES,
+    EditableValue,
     curves_csv,
     design_difference,
     editable_values,
@@ -42,6 +43,7 @@ from freqpair.views.plots import (
     show_legend_item,
 )
 from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
+from freqpair.app.sources import set_columns
 
 __all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS", "MAX_PINS", "Pin"]
 
@@ -197,6 +199,8 @@ class Explorer:
         self.controls = Tabs(name="controls", tabs=[], width=SIDEBAR_PX)
         self.measured = MeasuredPanel(self._measurement_changed, self._say, SIDEBAR_PX)
         self._files = None
+        self._rows: dict = {}        # design key -> (line, text box, slider or None)
+        self._loop_fixed = None      # the Loop tab's headings and second-stage button
         self.kind_selects = {}
         self.texts: dict = {}     # design key -> TextInput
         self.sliders: dict = {}   # design key -> Slider
@@ -303,22 +307,35 @@ class Explorer:
 
     # ------------------------------------------------------------- controls
     def _build_controls(self):
-        """(Re)build the value controls from the current design."""
-        active = self.controls.active if self.controls.tabs else 0
+        """(Re)build the value controls from the current design.
+
+        A value's line (label, box, slider) is made once per session and kept
+        in its tab's column, hidden while the design lacks the key (another kind,
+        no loop). A rebuild then only flips lines' visibility; the column's
+        children change only when a key is seen for the first time. Changing a
+        layout's children makes the server re-walk the whole document (≈ 80 ms
+        for this one) and send new models; a whole new sidebar cost ≈ 0.4 s of
+        server time per kind switch.
+        """
         values = editable_values(self.design)
         self.texts, self.sliders = {}, {}
-        panels = []
+        columns = []
         for title, prefixes in _SECTIONS:
             rows = [self._value_row(ev) for ev in values if ev.key.startswith(prefixes)]
             if title == "Loop":
                 rows = self._loop_rows(rows)
-            panels.append(TabPanel(title=title, child=column(*rows, spacing=0)))
-        if self._files is None:
-            self._files = self._files_block()
-        panels.append(TabPanel(title="Files", child=self._files))
-        self.controls.tabs = panels
-        self.controls.active = min(active, len(panels) - 1)
+            columns.append(rows)
+        if not self.controls.tabs:
+            if self._files is None:
+                self._files = self._files_block()
+            self.controls.tabs = [TabPanel(title=title, child=column(*rows, spacing=0))
+                                  for (title, _), rows in zip(_SECTIONS, columns)] + [
+                TabPanel(title="Files", child=self._files)]
+        else:
+            for panel, rows in zip(self.controls.tabs, columns):
+                _show_lines(panel.child, rows)
         self._sync_kinds()
+        self._sync_controls()
 
     def _loop_rows(self, rows):
         """The "Loop" tab: the feedback factor (empty box: no loop) and the second stage,
@@ -326,23 +343,55 @@ class Explorer:
         feedback = [r for r in rows if r.name == "row:feedback.factor"]
         stage = [r for r in rows if r.name != "row:feedback.factor"]
         if not feedback:
-            fb = TextInput(name="text:feedback.factor", value="", placeholder="none",
-                           width=_TEXT_PX, margin=_MARGIN, height=_ROW_PX)
-            fb.on_change("value", self._text_callback("feedback.factor"))
+            # no loop: the factor's own line (one per session), its box empty, no slider
+            if "feedback.factor" not in self._rows:
+                ev = EditableValue("feedback.factor", "feedback factor β_f", 0.1, "", "log",
+                                   -3.0, 0.0)
+                self._rows[ev.key] = (self._new_value_row(ev), self.texts[ev.key],
+                                      self.sliders.get(ev.key))
+                self.texts.pop(ev.key)
+                self.sliders.pop(ev.key, None)
+            line, fb, slider = self._rows["feedback.factor"]
+            fb.placeholder = "none"
+            if fb.value:
+                self._syncing = True
+                try:
+                    fb.value = ""
+                finally:
+                    self._syncing = False
+            slider.visible = False
             self.texts["feedback.factor"] = fb
-            feedback = [row(_label("feedback factor β_f", "feedback.factor"), fb,
-                            name="row:feedback.factor")]
-        has = self.design.second_stage is not None
-        toggle = Button(name="second_stage_toggle", width=170, margin=(4, 5, 4, 5),
-                        label="Remove second stage" if has else "Add second stage")
-        toggle.on_click(self.toggle_second_stage)
-        return [_heading("Feedback", "empty the β_f box for no loop"), *feedback,
+            feedback = [line]
+        else:
+            self.sliders["feedback.factor"].visible = True
+        if self._loop_fixed is None:
+            toggle = Button(name="second_stage_toggle", width=170, margin=(4, 5, 4, 5))
+            toggle.on_click(self.toggle_second_stage)
+            self._loop_fixed = (
+                _heading("Feedback", "empty the β_f box for no loop"),
                 _heading("Second stage", "a gain stage on o2; with it the gain plotted "
                                          "and the loop use A_total"),
-                toggle, *stage]
+                toggle)
+        heading_fb, heading_stage, toggle = self._loop_fixed
+        has = self.design.second_stage is not None
+        toggle.label = "Remove second stage" if has else "Add second stage"
+        return [heading_fb, *feedback, heading_stage, toggle, *stage]
 
     def _value_row(self, ev):
-        """One compact line per value: label, entry box and (not for counts) a slider."""
+        """One compact line per value: label, entry box and (not for counts) a slider
+        (made once per key and session, then reused)."""
+        cached = self._rows.get(ev.key)
+        if cached is not None:
+            line, text, slider = cached
+            self.texts[ev.key] = text
+            if slider is not None:
+                self.sliders[ev.key] = slider
+            return line
+        line = self._new_value_row(ev)
+        self._rows[ev.key] = (line, self.texts[ev.key], self.sliders.get(ev.key))
+        return line
+
+    def _new_value_row(self, ev):
         text = TextInput(name=f"text:{ev.key}", value=ev.text, width=_TEXT_PX, margin=_MARGIN,
                          height=_ROW_PX)
         text.on_change("value", self._text_callback(ev.key))
@@ -540,14 +589,15 @@ class Explorer:
         f = data["curves"]["f_hz"]
         self.doc.hold("combine")
         try:
-            self.curves.data = dict(data["curves"])
-            self.corner.data = dict(data["corner"])
-            self.target.data = dict(data["target"])
-            self.target_line.data = {"f_hz": [float(f[0]), float(f[-1])],
-                                     "cmrr_db": [data["target_db"]] * 2}
-            self.pz.data = dict(data["poles_zeros"])
-            self.metrics.data = dict(data["metrics"])
-            self.hand.data = dict(data["hand"])
+            # only changed columns go to the page (freqpair.app.sources)
+            set_columns(self.curves, data["curves"])
+            set_columns(self.corner, data["corner"])
+            set_columns(self.target, data["target"])
+            set_columns(self.target_line, {"f_hz": [float(f[0]), float(f[-1])],
+                                           "cmrr_db": [data["target_db"]] * 2})
+            set_columns(self.pz, data["poles_zeros"])
+            set_columns(self.metrics, data["metrics"])
+            set_columns(self.hand, data["hand"])
             self.measured.show(data)
             name = self.design.name or "(unnamed design)"
             self.header.text = (f"<div style='{_CSS_HEADER}'><b>freqpair explorer</b> — "
@@ -677,6 +727,25 @@ class Explorer:
             self._build_controls()
             return True
         return False
+
+
+def _show_lines(col, lines) -> None:
+    """Show exactly ``lines`` in column ``col``, in that order, hiding its others.
+
+    The column's children are replaced only when a line is new to it or the
+    order differs (rare: the first time a key is seen); otherwise only the
+    lines' ``visible`` flags change.
+    """
+    children = list(col.children)
+    wanted = {id(x) for x in lines}
+    position = {id(x): k for k, x in enumerate(children)}
+    order = [position.get(id(x)) for x in lines]
+    if None in order or order != sorted(order):
+        col.children = list(lines) + [x for x in children if id(x) not in wanted]
+    for x in col.children:
+        shown = id(x) in wanted
+        if x.visible != shown:
+            x.visible = shown
 
 
 _TEXT_PX, _SLIDER_PX, _LABEL_PX = 96, 130, 132

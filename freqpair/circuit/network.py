@@ -512,8 +512,8 @@ class FrequencySolver:
         """``l·(G + sC)⁻¹·b`` at one complex frequency ``s`` [rad/s], by a direct solve.
 
         The lean path for root-finding steps (one LU of an n×n matrix by
-        LAPACK's gesv, no sweep set-up, no other gains). A singular matrix gives
-        non-finite values, reported as a NetworkError.
+        LAPACK's gesv, no sweep set-up, no other gains). A singular matrix (a zero
+        pivot or non-finite values) is reported as a NetworkError.
 
         Parameters
         ----------
@@ -528,10 +528,10 @@ class FrequencySolver:
         if gesv is None:                       # LAPACK's complex solve, looked up once
             gesv = self._gesv = sla.lapack.get_lapack_funcs("gesv", (np.zeros(1, complex),))
             self._Gc = self.G.astype(complex)
-        x = gesv(self._Gc + s * self.C, b)[2]
+        _, _, x, info = gesv(self._Gc + s * self.C, b)
         out = l @ x
         finite = cmath.isfinite(out) if out.ndim == 0 else np.isfinite(out).all()
-        if not finite:
+        if info != 0 or not finite:      # info > 0: an exactly zero pivot
             raise NetworkError(f"the network is singular at f = {s.imag / 2 / np.pi:.6g} Hz")
         return out
 
