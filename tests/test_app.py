@@ -17,7 +17,8 @@ from bokeh.document import Document
 import freqpair
 import freqpair.studies.measured
 from freqpair.app import app_dir
-from freqpair.app.view import MAX_FILE_BYTES, make_doc
+from freqpair.app.view import MAX_FILE_BYTES, N_POINTS, make_doc
+from freqpair.views.explore import explore, explore_grid
 from freqpair.design.files import BUILTIN_EXAMPLE
 from freqpair.analysis.poles import response_zpk
 
@@ -141,6 +142,7 @@ def test_sixth_pin_drops_the_oldest_with_a_note(app):
 def test_adding_a_second_stage_shows_a_total_and_removing_it_restores(app):
     doc, ex = app
     before = {k: np.array(v) for k, v in ex.curves.data.items()}
+    ex.show_view("Numbers")           # the table is filled while it is shown
     rows_before = dict(zip(ex.metrics.data["quantity"], ex.metrics.data["value"]))
     toggle = w(doc, "second_stage_toggle")
     assert toggle.label == "Add second stage" and "second_stage.gm" not in ex.texts
@@ -176,6 +178,7 @@ def test_adding_a_second_stage_shows_a_total_and_removing_it_restores(app):
 def test_empty_feedback_box_removes_the_loop_and_offers_the_box_again(app):
     doc, ex = app
     w(doc, "text:feedback.factor").value = "0.05"
+    ex.show_view("Numbers")
     assert ex.design.feedback is not None and "phase margin" in ex.metrics.data["quantity"]
     w(doc, "text:feedback.factor").value = ""
     # DESIGN.md §3: [feedback] is optional; without it there are no margins
@@ -254,6 +257,7 @@ def test_cmrr_target_moves_the_marked_crossing(app):
 
 
 def _row(ex, quantity):
+    ex.show_view("Numbers")           # the table is filled while it is shown
     rows = dict(zip(ex.metrics.data["quantity"], ex.metrics.data["value"]))
     assert quantity in rows, sorted(rows)
     return rows[quantity]
@@ -295,6 +299,7 @@ def test_two_stage_feedback_design_shows_phase_and_gain_margin():
 
 def test_hand_table_shows_the_textbook_gain_beside_the_exact_one(app):
     doc, ex = app
+    ex.show_view("Hand estimates")    # the table is filled while it is shown
     q = ex.hand.data["quantity"]
     i = next(k for k, name in enumerate(q) if name.startswith("DC differential gain"))
     d = ex.design
@@ -322,6 +327,7 @@ def test_pole_zero_map_of_a_matched_pair_is_the_half_circuit_without_cancelled_p
     C = np.array([[ss.c_in + ss.c_fb, -ss.c_fb],
                   [-ss.c_fb, ss.c_fb + d.load.capacitance + d.pair.ccs]])
     want_poles = np.sort(np.abs(scipy.linalg.eigvals(G, -C))) / (2 * np.pi)
+    ex.show_view("Poles & zeros")     # the map is computed while it is shown
     kinds = list(ex.pz.data["kind"])
     mags = np.asarray(ex.pz.data["mag_hz"])
     got_poles = np.sort(mags[[k == "pole" for k in kinds]])
@@ -480,6 +486,7 @@ def test_gain_kind_is_drawn_on_the_gain_plot_and_clear_removes_it(bench):
     ex.measured.clear()
     assert len(w(doc, "measured_source").data["f_hz"]) == 0
     assert not w(doc, "measured_cmrr").visible and not w(doc, "residual_cmrr").visible
+    ex.show_view("Numbers")
     assert not any(q.startswith("measured") for q in ex.metrics.data["quantity"])
 
 
@@ -628,3 +635,27 @@ def test_a_panel_is_computed_only_while_its_view_is_open():
     views.active = 0
     ex.edit("tail.capacitance", "5 pF")
     assert len(shown) == 2                          # hidden again: not computed
+
+
+def test_tables_and_pole_zero_map_are_filled_while_shown_and_always_of_the_design_on_screen(app):
+    # oracle: freqpair.views.explore.explore (the library) on the design the session holds
+    doc, ex = app
+    assert ex.metrics.data["quantity"] == [] and ex.hand.data["quantity"] == []   # hidden
+    ex.edit("tail.capacitance", "7 pF")
+    assert ex.metrics.data["quantity"] == []         # hidden: an edit computes no table
+    for view, part, src in (("Numbers", "metrics", ex.metrics), ("Hand estimates", "hand", ex.hand),
+                            ("Poles & zeros", "poles_zeros", ex.pz)):
+        ex.show_view(view)
+        want = explore(ex.design, explore_grid(ex.design, N_POINTS))[part]
+        for k, v in want.items():
+            np.testing.assert_array_equal(np.asarray(src.data[k]), np.asarray(v), err_msg=k)
+        ex.edit("tail.capacitance", "9 pF")          # open: follows the edit at once
+        want = explore(ex.design, explore_grid(ex.design, N_POINTS))[part]
+        for k, v in want.items():
+            np.testing.assert_array_equal(np.asarray(src.data[k]), np.asarray(v), err_msg=k)
+        ex.edit("tail.capacitance", "7 pF")
+    ex.show_view("Gains")
+    ex.edit("tail.capacitance", "3 pF")              # hidden tables go stale ...
+    ex.show_view("Numbers")                          # ... and are recomputed when opened
+    want = explore(ex.design, explore_grid(ex.design, N_POINTS))["metrics"]
+    assert list(ex.metrics.data["value"]) == want["value"]

@@ -77,6 +77,28 @@ class Analysis:
             object.__setattr__(self, "_noise", cached)
         return cached
 
+    def cmrr_se_crossing_hz(self, level_db: float) -> float | None:
+        """Lowest frequency [Hz] where the single-ended CMRR falls to ``level_db``.
+
+        None when the CMRR is infinite or already at or below the level at DC.
+        Bracketed on the search grid's values kept from :func:`analyze`, then
+        root-found on direct solves of the two gains at o2 (the same path as
+        the CMRR corner).
+        """
+        if self.cmrr_se_db is None or self.cmrr_se_db <= level_db:
+            return None
+        resp = self.responses
+        o2_row, _ = resp.output_row("adm_se")
+        dm_cm = np.column_stack([resp.excitation("dm"), resp.excitation("cm")])
+
+        def cmrr_curve(f):
+            h = np.array([resp.solver.transfer_at(complex(s), dm_cm, o2_row)
+                          for s in s_of_hz(np.atleast_1d(f))])      # (n_f, 2)
+            return db(h[:, 0]) - db(h[:, 1])
+
+        on_grid = self.__dict__.get("_cmrr_se_on_grid")
+        return lowest_crossing(cmrr_curve, level_db, self._search, on_grid)
+
     @property
     def tail(self) -> TailNorton | None:
         return self.stage.tail
@@ -254,6 +276,9 @@ def _analyze(design: Design) -> Analysis:
         acm_cm_db = _gain_db(complex(dc.acm_cm[0]), ref)
         if acm_cm_db is not None:
             cmrr_textbook_db = 20 * math.log10(ref) - acm_cm_db
-    return Analysis(design, stage, resp, dc, primary, adm_db, adm_db_first, a_total_db, f3db, ugf,
-                    acm_se_db, cmrr_se_db, cmrr_db, cmrr_textbook_db, corner, poles, grid,
-                    supply_rejection(resp, grid, on_grid), input_impedance(resp, grid, on_grid))
+    out = Analysis(design, stage, resp, dc, primary, adm_db, adm_db_first, a_total_db, f3db,
+                   ugf, acm_se_db, cmrr_se_db, cmrr_db, cmrr_textbook_db, corner, poles, grid,
+                   supply_rejection(resp, grid, on_grid), input_impedance(resp, grid, on_grid))
+    if cmrr_se_db is not None:      # kept for cmrr_se_crossing_hz (a target's crossing)
+        object.__setattr__(out, "_cmrr_se_on_grid", db(on_grid.adm_se) - db(on_grid.acm_se))
+    return out

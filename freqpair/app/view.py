@@ -20,6 +20,7 @@ from freqpair.design.schema import design_to_dict, parse_design
 from freqpair.design.keys import replace_value
 from freqpair.design.errors import DesignError, FreqpairError
 from freqpair.views.explore import (
+    EXPLORE_PARTS,
     KIND_CHOICES,
     EditableValue,
     curves_csv,
@@ -46,6 +47,10 @@ from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_te
 from freqpair.app.sources import set_columns
 
 __all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS", "MAX_PINS", "Pin"]
+
+#: Fixed views whose content is computed only while shown: title -> explore() part.
+_LAZY_VIEWS = {"Poles & zeros": "poles_zeros", "Numbers": "metrics",
+               "Hand estimates": "hand"}
 
 #: Frequency points per curve.
 N_POINTS = 500
@@ -173,6 +178,7 @@ class Explorer:
         self.analysis = None
         self.panels: list = []    # view panels computed only while shown (see add_panel)
         self._stale: set = set()
+        self._stale_parts: set = set(EXPLORE_PARTS)   # tables computed only while shown
         self._views = None
         self._syncing = False
         self._downloads = 0
@@ -184,9 +190,11 @@ class Explorer:
         self.corner = ColumnDataSource(_empty(("f_hz", "cmrr_db")), name="corner_source")
         self.target = ColumnDataSource(_empty(("f_hz", "cmrr_db")), name="target_source")
         self.target_line = ColumnDataSource(_empty(("f_hz", "cmrr_db")), name="target_line")
-        self.pz = ColumnDataSource(name="pz_source")
-        self.metrics = ColumnDataSource(name="metrics_source")
-        self.hand = ColumnDataSource(name="hand_source")
+        self.pz = ColumnDataSource(_empty(("kind", "re_hz", "im_hz", "mag_hz", "abs_re_hz",
+                                           "half_plane")), name="pz_source")
+        self.metrics = ColumnDataSource(_empty(("quantity", "value")), name="metrics_source")
+        self.hand = ColumnDataSource(_empty(("quantity", "exact", "approx", "error",
+                                             "method")), name="hand_source")
         self.downloads = ColumnDataSource(_empty(("filename", "text", "mime", "n")),
                                           name="downloads")
         self.downloads.js_on_change("data", CustomJS(args={"source": self.downloads},
@@ -517,8 +525,10 @@ class Explorer:
             target = self._target_db()
             from freqpair.analysis.result import analyze
             analysis = analyze(design)
+            # the curves, marks and status; the tables and the pole-zero map are
+            # computed when their view is shown (_fill_part)
             data = explore(design, explore_grid(design, N_POINTS), target_db=target,
-                           analysis=analysis, measurement=measurement)
+                           analysis=analysis, measurement=measurement, parts=())
         except FreqpairError as exc:
             self._say(f"{exc} — kept the last good result", bad=True)
             return False
@@ -558,9 +568,33 @@ class Explorer:
         return k if 0 <= k < len(self.panels) else None
 
     def _refresh_panels(self, active) -> None:
-        """Mark every panel stale and show the open one (called inside a hold)."""
+        """Mark every panel and table stale and show the open one (inside a hold)."""
         self._stale = set(range(len(self.panels)))
+        self._stale_parts = set(EXPLORE_PARTS)
         self._show_panel(self._panel_index(active))
+        self._fill_part(self._part_of(active))
+
+    def _part_of(self, active):
+        """The :data:`EXPLORE_PARTS` entry the fixed view ``active`` shows (or None)."""
+        if active is None or self._views is None or active >= self._fixed_views:
+            return None
+        return _LAZY_VIEWS.get(self._views.tabs[active].title)
+
+    def _fill_part(self, part) -> None:
+        """Compute one table (or the pole-zero map) of the design on screen, if stale."""
+        if part is None or part not in self._stale_parts or self.analysis is None:
+            return
+        try:
+            data = explore(self.design, self.data["curves"]["f_hz"],
+                           target_db=self.data["target_db"], analysis=self.analysis,
+                           measurement=self.measured.measurement, parts=(part,))
+        except FreqpairError as exc:
+            self._say(f"{exc} — kept the last good result", bad=True)
+            return
+        self.data[part] = data[part]
+        set_columns({"poles_zeros": self.pz, "metrics": self.metrics,
+                     "hand": self.hand}[part], data[part])
+        self._stale_parts.discard(part)
 
     def _show_panel(self, k) -> None:
         if k is None or k not in self._stale or self.analysis is None:
@@ -574,13 +608,21 @@ class Explorer:
 
     def _view_opened(self, active) -> None:
         k = self._panel_index(active)
-        if k is None or k not in self._stale:
+        part = self._part_of(active)
+        if (k is None or k not in self._stale) and (part is None
+                                                    or part not in self._stale_parts):
             return
         self.doc.hold("combine")
         try:
             self._show_panel(k)
+            self._fill_part(part)
         finally:
             self.doc.unhold()
+
+    def show_view(self, title: str) -> None:
+        """Open the view (tab) called ``title``, as a click on its tab would."""
+        titles = [t.title for t in self._views.tabs]
+        self._views.active = titles.index(title)
 
     def _measurement_changed(self) -> bool:
         return self.apply(self.design, need_measured=True)
@@ -595,9 +637,6 @@ class Explorer:
             set_columns(self.target, data["target"])
             set_columns(self.target_line, {"f_hz": [float(f[0]), float(f[-1])],
                                            "cmrr_db": [data["target_db"]] * 2})
-            set_columns(self.pz, data["poles_zeros"])
-            set_columns(self.metrics, data["metrics"])
-            set_columns(self.hand, data["hand"])
             self.measured.show(data)
             name = self.design.name or "(unnamed design)"
             self.header.text = (f"<div style='{_CSS_HEADER}'><b>freqpair explorer</b> — "

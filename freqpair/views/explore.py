@@ -20,13 +20,13 @@ from freqpair.design.errors import DesignError
 from freqpair.analysis.hand import hand_table
 from freqpair.analysis.loop import loop_analysis
 from freqpair.studies.measured import MeasurementError, overlay
-from freqpair.analysis.crossings import db, lowest_crossing
+from freqpair.analysis.crossings import db
 from freqpair.analysis.poles import response_zpk
 from freqpair.analysis.summary import format_metric
 from freqpair.design.quantities import format_si
 from freqpair.analysis.responses import ZERO_GAIN_RATIO
 
-__all__ = ["explore", "explore_grid", "editable_values", "EditableValue", "switch_kind",
+__all__ = ["explore", "EXPLORE_PARTS", "explore_grid", "editable_values", "EditableValue", "switch_kind",
            "KIND_CHOICES", "curves_csv", "CURVE_COLUMNS", "measured_view", "MEASURED_PLOT",
            "SECOND_STAGE_DEFAULTS", "with_second_stage", "design_difference"]
 
@@ -465,16 +465,7 @@ def _cross_text(analysis, target_db, cross_hz) -> str:
 
 def _target_crossing(analysis, target_db: float) -> float | None:
     """Lowest frequency [Hz] where the single-ended CMRR falls to ``target_db``."""
-    if analysis.cmrr_se_db is None or analysis.cmrr_se_db <= target_db:
-        return None
-    resp = analysis.responses
-
-    def cmrr(f):
-        r = resp.at(f)
-        return db(r.adm_se) - db(r.acm_se)
-
-    grid = analysis._search
-    return lowest_crossing(cmrr, target_db, grid)
+    return analysis.cmrr_se_crossing_hz(target_db)
 
 
 def _hand_rows(analysis) -> dict:
@@ -491,8 +482,12 @@ def _hand_rows(analysis) -> dict:
     return cols
 
 
+#: The parts of :func:`explore`'s answer that can be left out (``parts=``).
+EXPLORE_PARTS = ("poles_zeros", "metrics", "hand")
+
+
 def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None,
-            measurement=None) -> dict:
+            measurement=None, parts=None) -> dict:
     """Every view of the explorer for one design, as plain arrays and rows.
 
     Parameters
@@ -507,6 +502,10 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None,
         A ready :func:`freqpair.analyze` result for ``design``.
     measurement : freqpair.studies.measured.Measurement, optional
         A bench measurement to lay over the model (see :func:`measured_view`).
+    parts : iterable of str, optional
+        Which of :data:`EXPLORE_PARTS` to compute (default all); a part left
+        out is None in the answer (the explorer fills a table only while it is
+        shown).
 
     Returns
     -------
@@ -534,7 +533,7 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None,
         from freqpair.analysis.result import analyze
         analysis = analyze(design)
     f = explore_grid(design) if f_hz is None else np.asarray(f_hz, dtype=float)
-    r = analysis.responses.at(f)
+    r = analysis.responses.at(f, signal_only=True)    # no rails here
     n = f.size
     main = r.get(analysis.primary)
     ref = np.abs(r.adm if r.adm is not None else r.adm_se)
@@ -559,14 +558,15 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None,
     corner = analysis.cmrr_corner_hz
     cross = _target_crossing(analysis, float(target_db))
     marks = [x for x in (corner, cross) if x is not None]
-    at_marks = analysis.responses.at(marks) if marks else None
+    at_marks = analysis.responses.at(marks, signal_only=True) if marks else None
     mark_db = list(db(at_marks.adm_se) - db(at_marks.acm_se)) if marks else []
     corner_pt = {"f_hz": [corner], "cmrr_db": [mark_db[0]]} if corner is not None else {
         "f_hz": [], "cmrr_db": []}
     target_pt = {"f_hz": [cross], "cmrr_db": [float(target_db)]} if cross is not None else {
         "f_hz": [], "cmrr_db": []}
     loop = loop_analysis(analysis) if analysis.design.feedback is not None else None
-    rows = _rows_metrics(analysis, float(target_db), cross, loop)
+    want = set(EXPLORE_PARTS if parts is None else parts)
+    rows = _rows_metrics(analysis, float(target_db), cross, loop) if "metrics" in want else []
     measured, note = None, ""
     if measurement is not None:
         try:
@@ -579,9 +579,10 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None,
         "corner": corner_pt,
         "target": target_pt,
         "target_db": float(target_db),
-        "poles_zeros": _pole_zero_points(analysis),
-        "metrics": {"quantity": [q for q, _ in rows], "value": [v for _, v in rows]},
-        "hand": _hand_rows(analysis),
+        "poles_zeros": _pole_zero_points(analysis) if "poles_zeros" in want else None,
+        "metrics": ({"quantity": [q for q, _ in rows], "value": [v for _, v in rows]}
+                    if "metrics" in want else None),
+        "hand": _hand_rows(analysis) if "hand" in want else None,
         "cmrr_corner_hz": corner,
         "target_cross_hz": cross,
         "f3db_hz": analysis.f3db_hz,
