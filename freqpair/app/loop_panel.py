@@ -57,7 +57,7 @@ class LoopPanel:
     def __init__(self):
         from bokeh.models import ColumnDataSource, Div
 
-        from freqpair.app.view import MAX_PINS
+        from freqpair.app.limits import MAX_PINS
         self.curves = ColumnDataSource(_empty(_CURVES), name="loop_curves")
         self.step = ColumnDataSource(_empty(_STEP), name="loop_step")
         self.marks = {k: ColumnDataSource({"x": [], "y": [], "text": []},
@@ -148,7 +148,7 @@ class LoopPanel:
     def _pin_view(self, pin):
         if pin.number not in self._pin_cache:
             from freqpair.analysis.result import analyze
-            from freqpair.app.view import N_POINTS
+            from freqpair.app.limits import N_POINTS
             from freqpair.design.errors import FreqpairError
             from freqpair.views.explore import explore_grid
             from freqpair.views.stage_data import loop_view
@@ -165,7 +165,7 @@ class LoopPanel:
         """Show each slot's legend items with its pin's words; hide the others."""
         from bokeh.core.properties import value
 
-        from freqpair.app.view import MAX_PINS
+        from freqpair.app.limits import MAX_PINS
         from freqpair.views.plots import pin_legend_items
         by_slot = dict(shown)
         for fig in self.figures:

@@ -42,15 +42,12 @@ from freqpair.views.plots import (
     show_legend_item,
 )
 from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
+from freqpair.app.limits import MAX_PINS, N_POINTS
 from freqpair.app.pole_paths import PolePaths
 
 __all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS", "MAX_PINS", "Pin"]
 
-#: Frequency points per curve.
-N_POINTS = 500
 SIDEBAR_PX = 410
-#: Pinned snapshots kept at once; pinning one more drops the oldest.
-MAX_PINS = 5
 #: Index of the Poles & zeros view in the ``views`` tabs (its pole paths are
 #: computed only while it is open).
 _POLES_VIEW = 2
