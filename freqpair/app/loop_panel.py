@@ -24,6 +24,8 @@ _CURVES = ("f_hz", "loop_db", "loop_deg", "beta_db", "closed_db")
 _STEP = ("t_s", "y", "band_lo", "band_hi")
 _PIN_CURVES = ("f_hz", "loop_db", "loop_deg", "closed_db")
 _PIN_STEP = ("t_s", "y")
+#: Plot height: the four plots and the readout fit a 1366×768 screen.
+_PLOT_PX = 212
 
 
 def _empty(columns) -> dict:
@@ -77,10 +79,10 @@ class LoopPanel:
         from bokeh.layouts import column, row
 
         from freqpair.views.stage_plots import closed_loop_figure, loop_figures, step_figure
-        mag, ph = loop_figures(self.curves, self.marks, height=250, pinned=self.pinned)
-        closed = closed_loop_figure(self.curves, self.marks, x_range=mag.x_range, height=250,
+        mag, ph = loop_figures(self.curves, self.marks, height=_PLOT_PX, pinned=self.pinned)
+        closed = closed_loop_figure(self.curves, self.marks, x_range=mag.x_range, height=_PLOT_PX,
                                     pinned=self.pinned)
-        step = step_figure(self.step, self.marks, height=250, pinned=self.pinned_step)
+        step = step_figure(self.step, self.marks, height=_PLOT_PX, pinned=self.pinned_step)
         mag.name, ph.name = "loop_gain_figure", "loop_phase_figure"
         closed.name, step.name = "closed_loop_figure", "step_figure"
         mag.xaxis.axis_label = None
@@ -192,5 +194,5 @@ def _readout(marks: dict) -> str:
     texts = [t for k in MARK_KEYS for t in marks[k]["text"]]
     if not texts:
         return ""
-    items = "".join(f"<span style='margin-right:18px'>{_html(t)}</span>" for t in texts)
+    items = " · ".join(f"<span>{_html(t)}</span>" for t in texts)
     return f"<div style='font-family:sans-serif;font-size:13px'>{items}</div>"
