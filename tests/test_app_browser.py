@@ -260,8 +260,9 @@ def _expected(design):
     loop_status = ""
     if design.feedback is not None:
         loop_status = (" · phase margin "
-                       f"{format_metric('phase_margin_deg', data['phase_margin_deg'])} at "
-                       f"{format_metric('crossover_hz', data['crossover_hz'])}")
+                       f"{format_metric('phase_margin_deg', data['phase_margin_deg'])}")
+        if data["crossover_hz"] is not None:
+            loop_status += f" at {format_metric('crossover_hz', data['crossover_hz'])}"
     return {"page_metrics": [list(r) for r in zip(page["metrics"]["quantity"],
                                                   page["metrics"]["value"])],
             "metrics": metrics, "op": op, "hand": hand_rows, "status": status,

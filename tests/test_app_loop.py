@@ -231,3 +231,14 @@ def test_a_key_that_disappears_brings_the_hint_back(two_stage):
     ex.edit("feedback.factor", "")           # no loop: the key is gone
     assert TOUCH_HINT in ex.pole_paths.caption.text
     assert len(ex.pole_paths.points.data["x"]) == 0
+
+
+def test_status_line_says_no_crossing_when_the_loop_gain_stays_below_0_db(two_stage):
+    doc, ex = two_stage
+    w(doc, "text:feedback.factor").value = "1e-7"
+    j = freqpair.analyze(ex.design).to_json()
+    # oracle: analyze().to_json() has no crossover (null) for a loop gain below 0 dB at
+    # DC (A_total ≈ 117 dB, β = −140 dB); format_metric writes the null as the reports do
+    assert j["crossover_hz"] is None
+    assert ex.message_text.endswith(" · phase margin "
+                                    + format_metric("phase_margin_deg", None))

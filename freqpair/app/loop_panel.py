@@ -98,17 +98,24 @@ class LoopPanel:
     def show(self, explorer) -> None:
         """Fill the sources from ``explorer``'s design, analysis and pins."""
         from freqpair.views.stage_data import loop_view
+        from freqpair.design.errors import FreqpairError
         self.computed += 1
-        view = None
+        view, hint = None, NO_LOOP_HINT
         if explorer.design.feedback is not None:
-            view = loop_view(explorer.analysis, explorer.data["curves"]["f_hz"],
-                             result=explorer.data["loop"])
+            try:
+                view = loop_view(explorer.analysis, explorer.data["curves"]["f_hz"],
+                                 result=explorer.data["loop"])
+            except FreqpairError:
+                raise
+            except Exception as exc:    # never let a session die on one bad value
+                hint = f"the loop could not be computed ({exc.__class__.__name__})"
+                explorer._say(f"Loop: {hint}", bad=True)
         if view is None:
             self.curves.data = _empty(_CURVES)
             self.step.data = _empty(_STEP)
             for src in self.marks.values():
                 src.data = {"x": [], "y": [], "text": []}
-            self.hint.text = _note(NO_LOOP_HINT)
+            self.hint.text = _note(hint)
             self.readout.text = ""
         else:
             self.curves.data = {k: view["curves"][k] for k in _CURVES}
@@ -151,14 +158,13 @@ class LoopPanel:
         if pin.number not in self._pin_cache:
             from freqpair.analysis.result import analyze
             from freqpair.app.limits import N_POINTS
-            from freqpair.design.errors import FreqpairError
             from freqpair.views.explore import explore_grid
             from freqpair.views.stage_data import loop_view
             view = None
             if pin.design.feedback is not None:
                 try:
                     view = loop_view(analyze(pin.design), explore_grid(pin.design, N_POINTS))
-                except FreqpairError:
+                except Exception:       # a pin that cannot be drawn is left out
                     view = None
             self._pin_cache[pin.number] = view
         return self._pin_cache[pin.number]

@@ -766,9 +766,9 @@ def _status(data) -> str:
     if data.get("loop") is not None:
         from freqpair.analysis.summary import format_metric
         pm, fc = data["phase_margin_deg"], data["crossover_hz"]
-        text += (f" · phase margin {format_metric('phase_margin_deg', pm)} at "
-                 f"{format_metric('crossover_hz', fc)}" if fc is not None
-                 else " · loop gain never crosses 0 dB (no phase margin)")
+        text += f" · phase margin {format_metric('phase_margin_deg', pm)}"
+        if fc is not None:      # else the words say "no crossing", as the reports do
+            text += f" at {format_metric('crossover_hz', fc)}"
     if data.get("measured") is not None:
         text += f" · measured − model rms {data['measured']['rms_residual_db']:.2f} dB"
     elif data.get("measured_note"):
