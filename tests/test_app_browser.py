@@ -257,9 +257,16 @@ def _expected(design):
     status = (f"f_3dB {format_metric('f3db_hz', data['f3db_hz'])} · "
               f"CMRR corner {format_metric('cmrr_corner_hz', data['cmrr_corner_hz'])} · "
               "CMRR falls to 60 dB at ")
+    loop_status = ""
+    if design.feedback is not None:
+        loop_status = (" · phase margin "
+                       f"{format_metric('phase_margin_deg', data['phase_margin_deg'])}")
+        if data["crossover_hz"] is not None:
+            loop_status += f" at {format_metric('crossover_hz', data['crossover_hz'])}"
     return {"page_metrics": [list(r) for r in zip(page["metrics"]["quantity"],
                                                   page["metrics"]["value"])],
             "metrics": metrics, "op": op, "hand": hand_rows, "status": status,
+            "loop_status": loop_status,
             "cross": cross, "corner": data["cmrr_corner_hz"]}
 
 
@@ -329,7 +336,9 @@ def test_tables_and_status_line_show_the_design_typed_in_the_page(tmp_path):
             assert status.startswith(want["status"]), where
             # oracle: the CMRR-target crossing root-found here (scipy brentq on the
             # analysis' exact responses); the page shows 4 significant digits
-            shown = status.removeprefix(want["status"])
+            shown, _, loop = status.removeprefix(want["status"]).partition(" · ")
+            # oracle: analyze(design).to_json() phase margin and crossover (format_metric)
+            assert (f" · {loop}" if loop else "") == want["loop_status"], where
             assert freqpair.parse_si(shown.removesuffix("Hz"), field="status") == pytest.approx(
                 want["cross"], rel=1e-3), where
         else:
@@ -435,4 +444,58 @@ def test_legends_show_the_pins_and_gains_of_the_design_typed_in_the_page(tmp_pat
     assert [name for name, _ in cleared] == [
         _PRIMARY_LABEL["a_total"], "common-mode gain A_cm,se (o2)"]
     assert all(inked > 0 for _, inked in cleared), cleared
+    assert errors == []
+
+
+#: The Loop view's marks in reading order: (words before the number, JSON key).
+LOOP_MARKS = (("crossover", "crossover_hz"), ("phase margin", "phase_margin_deg"),
+              ("gain margin", "gain_margin_db"), ("−3 dB", "closed_loop_f3db_hz"),
+              ("peaking", "peaking_db"), ("overshoot", "overshoot_pct"),
+              ("1 % settling", "settling_time_s"))
+
+
+@pytest.mark.browser
+def test_loop_view_in_the_page_shows_the_margins_of_the_design_typed(tmp_path):
+    from browser_util import click_tab, type_into, visible_text
+    from freqpair.analysis.summary import format_metric
+    port = free_port()
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", str(TWO_STAGE),
+                             "--port", str(port), "--no-browser"], cwd=ROOT, env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    driver = None
+    design = freqpair.replace_value(freqpair.load_design(TWO_STAGE),
+                                    "second_stage.miller_capacitance", "30 pF")
+    j = freqpair.analyze(design).to_json()
+    want = [f"{words} {format_metric(key, j[key])}" for words, key in LOOP_MARKS]
+    try:
+        assert f"127.0.0.1:{port}" in proc.stdout.readline()
+        driver = make_driver(tmp_path)
+        driver.get(f"http://127.0.0.1:{port}/")
+        wait_for_bokeh(driver)
+        wait_until(lambda: visible_text(driver, "message"))
+        click_tab(driver, "views", "Loop")
+        before = wait_until(lambda: visible_text(driver, "loop_readout"), timeout=10)
+        click_tab(driver, "controls", "Loop")
+        type_into(driver, "text:second_stage.miller_capacitance", "30 pF")
+        readout = wait_until(lambda: (t := visible_text(driver, "loop_readout")) != before
+                             and t, timeout=10)
+        status = wait_until(lambda: (t := visible_text(driver, "message")) and "phase margin"
+                            in t and want[1].removeprefix("phase margin ") in t and t,
+                            timeout=5)
+        time.sleep(0.5)
+        ARTIFACTS.mkdir(exist_ok=True)
+        driver.save_screenshot(str(ARTIFACTS / "explorer_loop.png"))
+        errors = console_errors(driver)
+    finally:
+        if driver is not None:
+            driver.quit()
+        stop_server(proc)
+    # oracle: analyze() of the same design, to_json() — DESIGN.md §4's loop keys as
+    # format_metric writes them (the texts the plots' marks carry, shown as text)
+    assert readout.split(" · ") == want
+    # oracle: the same JSON's phase_margin_deg and crossover_hz in the status line
+    assert status.endswith("· phase margin "
+                           f"{format_metric('phase_margin_deg', j['phase_margin_deg'])}"
+                           f" at {format_metric('crossover_hz', j['crossover_hz'])}")
     assert errors == []

@@ -12,4 +12,7 @@ __all__ = ["make_panels"]
 
 def make_panels() -> list:
     """New panel objects for one session, in tab order."""
-    return []
+    from freqpair.app.loop_panel import LoopPanel
+    panels = []
+    panels.append(LoopPanel())
+    return panels

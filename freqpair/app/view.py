@@ -45,6 +45,8 @@ from freqpair.views.plots import (
 )
 from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
 from freqpair.app.sources import set_columns
+from freqpair.app.limits import MAX_PINS, N_POINTS
+from freqpair.app.pole_paths import PolePaths
 
 __all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS", "MAX_PINS", "Pin"]
 
@@ -52,11 +54,10 @@ __all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS", "MAX_PINS", "Pi
 _LAZY_VIEWS = {"Poles & zeros": "poles_zeros", "Numbers": "metrics",
                "Hand estimates": "hand"}
 
-#: Frequency points per curve.
-N_POINTS = 500
 SIDEBAR_PX = 410
-#: Pinned snapshots kept at once; pinning one more drops the oldest.
-MAX_PINS = 5
+#: Index of the Poles & zeros view in the ``views`` tabs (its pole paths are
+#: computed only while it is open).
+_POLES_VIEW = 2
 
 #: Legend words of the primary gain (``explore(...)["primary"]``).
 _PRIMARY_LABEL = {"adm": "differential gain A_dm",
@@ -169,6 +170,9 @@ class Explorer:
         The last design that analysed without error (what is on screen).
     data : dict
         The last :func:`~freqpair.views.explore.explore` result on screen.
+    touched : str or None
+        The design key of the numeric value the user set last (text box or
+        slider); the pole-zero map draws its pole paths.
     """
 
     def __init__(self, doc, design, note: str = ""):
@@ -179,6 +183,9 @@ class Explorer:
         self.panels: list = []    # view panels computed only while shown (see add_panel)
         self._stale: set = set()
         self._stale_parts: set = set(EXPLORE_PARTS)   # tables computed only while shown
+        self.touched = None
+        self.pole_paths = PolePaths()
+        self._paths_stale = True
         self._views = None
         self._syncing = False
         self._downloads = 0
@@ -246,8 +253,9 @@ class Explorer:
         mag.name, phase.name, cmrr.name = "gains_figure", "phase_figure", "cmrr_figure"
         self._figures = (mag, phase, cmrr)
         self._label_curves()
-        pz = pole_zero_figure(self.pz, height=480)
+        pz = pole_zero_figure(self.pz, height=460)
         pz.name = "pole_zero_figure"
+        self.pole_paths.attach(pz)
         self.measured.add_to(mag, cmrr)
         for fig in (mag, phase, cmrr):
             _repaint_legends_on_change(fig)
@@ -270,7 +278,8 @@ class Explorer:
         self._views = main = Tabs(name="views", sizing_mode="stretch_width", tabs=[
             TabPanel(title="Gains", child=column(mag, phase, sizing_mode="stretch_width")),
             TabPanel(title="CMRR", child=column(cmrr, sizing_mode="stretch_width")),
-            TabPanel(title="Poles & zeros", child=column(pz, sizing_mode="stretch_width")),
+            TabPanel(title="Poles & zeros", child=column(self.pole_paths.caption, pz,
+                                                         sizing_mode="stretch_width")),
             TabPanel(title="Numbers", child=column(Div(text="<b>Exact results</b>"), metrics)),
             TabPanel(title="Hand estimates", child=column(
                 Div(text="<b>Hand estimates beside the exact values</b> <small>(textbook "
@@ -484,7 +493,13 @@ class Explorer:
         except FreqpairError as exc:
             self._say(f"{exc} — kept the last good result", bad=True)
             return False
-        return self._apply_and_rebuild(design)
+        before = self.touched
+        if design.feedback is not None or key != "feedback.factor":
+            self.touched = key          # the pole paths follow the value set last
+        if not self._apply_and_rebuild(design):
+            self.touched = before
+            return False
+        return True
 
     def _apply_and_rebuild(self, design) -> bool:
         """Apply ``design``; rebuild the controls when an optional section came or went."""
@@ -571,8 +586,11 @@ class Explorer:
         """Mark every panel and table stale and show the open one (inside a hold)."""
         self._stale = set(range(len(self.panels)))
         self._stale_parts = set(EXPLORE_PARTS)
+        self._paths_stale = True
         self._show_panel(self._panel_index(active))
         self._fill_part(self._part_of(active))
+        if active == _POLES_VIEW:
+            self._show_paths()
 
     def _part_of(self, active):
         """The :data:`EXPLORE_PARTS` entry the fixed view ``active`` shows (or None)."""
@@ -596,6 +614,21 @@ class Explorer:
                      "hand": self.hand}[part], data[part])
         self._stale_parts.discard(part)
 
+    def _show_paths(self) -> None:
+        """The pole paths of the touched value (only while Poles & zeros is open)."""
+        if not self._paths_stale or self.analysis is None:
+            return
+        try:
+            self.pole_paths.show(self)
+        except FreqpairError as exc:
+            self.pole_paths.clear(f"no pole paths: {exc}")
+            self._say(f"pole paths: {exc}", bad=True)
+        except Exception as exc:    # never let a session die on one bad value
+            self.pole_paths.clear(f"no pole paths ({exc.__class__.__name__})")
+            self._say(f"pole paths: could not follow {self.touched} "
+                      f"({exc.__class__.__name__})", bad=True)
+        self._paths_stale = False
+
     def _show_panel(self, k) -> None:
         if k is None or k not in self._stale or self.analysis is None:
             return
@@ -609,13 +642,16 @@ class Explorer:
     def _view_opened(self, active) -> None:
         k = self._panel_index(active)
         part = self._part_of(active)
-        if (k is None or k not in self._stale) and (part is None
-                                                    or part not in self._stale_parts):
+        paths = active == _POLES_VIEW and self._paths_stale
+        if (k is None or k not in self._stale) and not paths and (
+                part is None or part not in self._stale_parts):
             return
         self.doc.hold("combine")
         try:
             self._show_panel(k)
             self._fill_part(part)
+            if paths:
+                self._show_paths()
         finally:
             self.doc.unhold()
 
@@ -673,6 +709,7 @@ class Explorer:
         try:
             self.pin_sources[pin.slot].data = dict(self.curves.data)
             self._label_pins()
+            self._refresh_pinned_panels()
         finally:
             self.doc.unhold()
         self._say(f"pinned the curves on screen as pin {pin.number}{note}", bad=False)
@@ -686,8 +723,15 @@ class Explorer:
                 src.data = {k: [] for k in self.curves.data}
             self.pins, self._pin_count = [], 0
             self._label_pins()
+            self._refresh_pinned_panels()
         finally:
             self.doc.unhold()
+
+    def _refresh_pinned_panels(self) -> None:
+        """Panels draw the pins too: mark them stale and show the open one."""
+        self._stale = set(range(len(self.panels)))
+        self._show_panel(self._panel_index(self._views.active if self._views is not None
+                                           else None))
 
     def pin_labels(self) -> list[str]:
         """Legend words of the pins, oldest first (``"pin 1: C_tail 2 pF"``)."""
@@ -823,6 +867,12 @@ def _status(data) -> str:
     text = (f"f_3dB {format_si(data['f3db_hz'], 'Hz')} · CMRR corner {corner} · "
             f"CMRR falls to {data['target_db']:g} dB at "
             f"{format_si(cross, 'Hz') if cross is not None else '— (not in range)'}")
+    if data.get("loop") is not None:
+        from freqpair.analysis.summary import format_metric
+        pm, fc = data["phase_margin_deg"], data["crossover_hz"]
+        text += f" · phase margin {format_metric('phase_margin_deg', pm)}"
+        if fc is not None:      # else the words say "no crossing", as the reports do
+            text += f" at {format_metric('crossover_hz', fc)}"
     if data.get("measured") is not None:
         text += f" · measured − model rms {data['measured']['rms_residual_db']:.2f} dB"
     elif data.get("measured_note"):

@@ -522,7 +522,10 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None,
         gain plotted as A_dm) and ``balanced``; ``measured``: the
         :func:`measured_view` of ``measurement`` (None without one) and
         ``measured_note``: why a given measurement cannot be compared with this
-        design ("" when it can).
+        design ("" when it can); with ``[feedback]``: ``loop`` (the
+        :class:`~freqpair.analysis.loop.LoopResult` the metric rows were written
+        from; None without ``[feedback]`` or with a zero gain) and its scalars
+        ``phase_margin_deg``, ``crossover_hz`` (None without a loop or a crossing).
 
     Raises
     ------
@@ -591,7 +594,14 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None,
         "balanced": analysis.stage.balanced,
         "measured": measured,
         "measured_note": note,
+        "loop": loop,
+        "phase_margin_deg": None if loop is None else _finite_or_none(loop.phase_margin_deg),
+        "crossover_hz": None if loop is None else _finite_or_none(loop.crossover_hz),
     }
+
+
+def _finite_or_none(x) -> float | None:
+    return None if x is None or not math.isfinite(x) else float(x)
 
 
 #: Which explorer plot a measured kind is drawn on: "gains" (magnitude) or "cmrr".

@@ -32,8 +32,22 @@ def _phase_deg(values: np.ndarray) -> np.ndarray:
     return np.degrees(np.unwrap(np.angle(values)))
 
 
-def loop_view(analysis, f_hz) -> dict | None:
+#: ``loop_view(..., result=_COMPUTE)``: find the loop's numbers here.
+_COMPUTE = object()
+
+
+def loop_view(analysis, f_hz, result=_COMPUTE) -> dict | None:
     """Loop gain, β, closed loop and step of a design with ``[feedback]``.
+
+    Parameters
+    ----------
+    analysis : Analysis
+    f_hz : array_like
+        Frequency grid of the curves [Hz].
+    result : LoopResult or None, optional
+        The :func:`~freqpair.analysis.loop.loop_analysis` of ``analysis`` when
+        the caller has it already (None: a zero gain, no loop numbers); by
+        default it is computed here.
 
     Returns
     -------
@@ -50,7 +64,7 @@ def loop_view(analysis, f_hz) -> dict | None:
     if analysis.design.feedback is None:
         return None
     model = loop_model(analysis)
-    res = loop_analysis(analysis)
+    res = loop_analysis(analysis) if result is _COMPUTE else result
     f = np.asarray(f_hz, dtype=float)
     t = model.loop_gain(f)
     curves = {"f_hz": f, "loop_db": db(t), "loop_deg": model.loop_phase_deg(f, t),
