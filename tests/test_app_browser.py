@@ -303,7 +303,8 @@ def test_tables_and_status_line_show_the_design_typed_in_the_page(tmp_path):
             elif view == "Numbers":
                 wait_until(lambda: driver.execute_script(SOURCE_ROWS_JS) == want["page_metrics"])
             else:
-                wait_until(lambda: visible_text(driver, "message").startswith(want["status"]))
+                wait_until(lambda: visible_text(driver, "message").startswith(want["status"])
+                           and visible_text(driver, "message").endswith(want["loop_status"]))
             status = visible_text(driver, "message")
             shown = {}
             # the table on screen first, then the other one (opened as a person would)
