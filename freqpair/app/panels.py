@@ -12,4 +12,9 @@ __all__ = ["make_panels"]
 
 def make_panels() -> list:
     """New panel objects for one session, in tab order."""
-    return []
+    from freqpair.app.noise_panel import NoisePanel
+    from freqpair.app.supply_panel import SupplyPanel
+    panels = []
+    panels.append(SupplyPanel())
+    panels.append(NoisePanel())
+    return panels

@@ -42,6 +42,8 @@ from freqpair.views.plots import (
     show_legend_item,
 )
 from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
+from freqpair.app.redraw import REDRAW_TABLE_JS as _REDRAW_TABLE_JS  # noqa: F401 (kept name)
+from freqpair.app.redraw import redraw_on_new_data as _redraw_on_new_data
 
 __all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS", "MAX_PINS", "Pin"]
 
@@ -70,23 +72,6 @@ const a = document.createElement("a");
 a.href = url; a.download = d.filename[0];
 document.body.appendChild(a); a.click(); a.remove();
 setTimeout(() => URL.revokeObjectURL(url), 1000);
-"""
-
-#: Redraw a DataTable's cells when its source gets new data. Bokeh 3.9's table view
-#: redraws only when the table's CDSView changes, and replacing ``source.data``
-#: with the same number of rows leaves the view's indices equal, so the page kept
-#: the old cells (3.4–3.8 and 3.10 redraw; measured in DEVELOPERS.md). This calls
-#: the table view's own ``updateGrid`` — what 3.10 connects to the source itself —
-#: after the whole server message is applied (a microtask), keeping the scroll
-#: position, sorting and column widths. ``rerender`` is the fallback should the
-#: method ever be missing.
-_REDRAW_TABLE_JS = """
-Promise.resolve().then(() => {
-  for (const view of Bokeh.index.find(table)) {
-    if (typeof view.updateGrid === "function") { view.updateGrid(); }
-    else if (typeof view.rerender === "function") { view.rerender(); }
-  }
-});
 """
 
 #: Table heights: the Numbers and Hand estimates views fit a 1366×768 screen (the
@@ -128,11 +113,6 @@ def _repaint_legends_on_change(fig) -> None:
         for item in legend.items:
             item.js_on_change("label", code)
             item.js_on_change("visible", code)
-
-
-def _redraw_on_new_data(table) -> None:
-    """Make the page redraw ``table``'s cells whenever its source's data is replaced."""
-    table.source.js_on_change("data", CustomJS(args={"table": table}, code=_REDRAW_TABLE_JS))
 
 
 @dataclass(frozen=True)
