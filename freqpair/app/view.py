@@ -44,6 +44,7 @@ from freqpair.views.plots import (
 from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
 from freqpair.app.redraw import REDRAW_TABLE_JS as _REDRAW_TABLE_JS  # noqa: F401 (kept name)
 from freqpair.app.redraw import redraw_on_new_data as _redraw_on_new_data
+from freqpair.app.structure_controls import StructureControls, structure_key
 
 __all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS", "MAX_PINS", "Pin"]
 
@@ -177,6 +178,7 @@ class Explorer:
         self.controls = Tabs(name="controls", tabs=[], width=SIDEBAR_PX)
         self.measured = MeasuredPanel(self._measurement_changed, self._say, SIDEBAR_PX)
         self._files = None
+        self.structure = StructureControls(self)
         self.kind_selects = {}
         self.texts: dict = {}     # design key -> TextInput
         self.sliders: dict = {}   # design key -> Slider
@@ -292,6 +294,10 @@ class Explorer:
             rows = [self._value_row(ev) for ev in values if ev.key.startswith(prefixes)]
             if title == "Loop":
                 rows = self._loop_rows(rows)
+            elif title == "Pair":
+                rows = self.structure.pair_rows(rows, SIDEBAR_PX)
+            elif title == "More":
+                rows = rows + self.structure.element_rows(SIDEBAR_PX)
             panels.append(TabPanel(title=title, child=column(*rows, spacing=0)))
         if self._files is None:
             self._files = self._files_block()
@@ -303,8 +309,8 @@ class Explorer:
     def _loop_rows(self, rows):
         """The "Loop" tab: the feedback factor (empty box: no loop) and the second stage,
         with a button that adds (freqpair's default values) or removes it."""
-        feedback = [r for r in rows if r.name == "row:feedback.factor"]
-        stage = [r for r in rows if r.name != "row:feedback.factor"]
+        feedback = [r for r in rows if r.name.startswith("row:feedback.")]
+        stage = [r for r in rows if not r.name.startswith("row:feedback.")]
         if not feedback:
             fb = TextInput(name="text:feedback.factor", value="", placeholder="none",
                            width=_TEXT_PX, margin=_MARGIN, height=_ROW_PX)
@@ -316,7 +322,8 @@ class Explorer:
         toggle = Button(name="second_stage_toggle", width=170, margin=(4, 5, 4, 5),
                         label="Remove second stage" if has else "Add second stage")
         toggle.on_click(self.toggle_second_stage)
-        return [_heading("Feedback", "empty the β_f box for no loop"), *feedback,
+        return [_heading("Feedback", "a fixed factor or a divider; an empty β_f box: no loop"),
+                self.structure.feedback_row(), *feedback,
                 _heading("Second stage", "a gain stage on o2; with it the gain plotted "
                                          "and the loop use A_total"),
                 toggle, *stage]
@@ -410,12 +417,30 @@ class Explorer:
         return self._apply_and_rebuild(design)
 
     def _apply_and_rebuild(self, design) -> bool:
-        """Apply ``design``; rebuild the controls when an optional section came or went."""
-        before = (self.design.feedback is not None, self.design.second_stage is not None)
+        """Apply ``design``; rebuild the controls when the stage's structure changed (an
+        optional section, the loop kind, a cascode, degeneration on/off, the elements)."""
+        before = structure_key(self.design)
         ok = self.apply(design)
-        if ok and (design.feedback is not None, design.second_stage is not None) != before:
+        if ok and structure_key(design) != before:
             self._build_controls()
         return ok
+
+    def apply_structure(self, make) -> bool:
+        """Apply ``make(self.design)`` (a cascode, element or loop-kind change); a refused
+        change (one line) keeps the last good design and its selectors."""
+        try:
+            design = make(self.design)
+        except FreqpairError as exc:
+            self._say(f"{exc} — kept the last good result", bad=True)
+            design = None
+        if design is not None and self._apply_and_rebuild(design):
+            return True
+        self._syncing = True
+        try:
+            self.structure.sync()
+        finally:
+            self._syncing = False
+        return False
 
     def toggle_second_stage(self) -> bool:
         """Add a second stage (freqpair's default values) or remove the one there is."""
