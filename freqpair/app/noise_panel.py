@@ -94,7 +94,7 @@ class NoisePanel:
         self.curves = ColumnDataSource({"f_hz": [], "en_v_rthz": [], "out_v_rthz": []},
                                        name="noise_source")
         self.marks = {"spot": ColumnDataSource({"x": [], "y": [], "text": []},
-                                               name="noise_spot")}
+                                               name="noise_spot_source")}
         self.contributors = ColumnDataSource({c: [] for c in CONTRIBUTOR_COLUMNS},
                                              name="noise_contributors")
         self.at_input = TextInput(name="noise_at", title="at [Hz]", value="", width=110)

@@ -122,13 +122,13 @@ class SupplyPanel:
         self.readout = None
         self._explorer = None
         self.psrr = ColumnDataSource({c: [] for c in _PSRR_COLUMNS}, name="psrr_source")
-        self.marks = {k: ColumnDataSource({"x": [], "y": [], "text": []}, name=f"psrr_{k}")
+        self.marks = {k: ColumnDataSource({"x": [], "y": [], "text": []}, name=f"psrr_{k}_source")
                       for k in _MARKS}
         self.target_line = ColumnDataSource({"f_hz": [], "y": []}, name="psrr_target_line")
         self.zin = ColumnDataSource({c: [] for c in _ZIN_COLUMNS}, name="zin_source")
         self.zin_marks = {"corner": ColumnDataSource({"x": [], "y": [], "text": []},
-                                                     name="zin_corner")}
-        self.target_input = TextInput(name="psrr_target", title="PSRR target [dB]",
+                                                     name="zin_corner_source")}
+        self.target_input = TextInput(name="psrr_target_input", title="PSRR target [dB]",
                                       value="60", width=120)
         self.target_input.on_change("value", lambda a, o, n: self._target_changed(n))
         self.readout_div = Div(name="supply_readout", text="", sizing_mode="stretch_width")
