@@ -356,3 +356,79 @@ def test_the_cascode_loop_example_opens_with_its_divider_and_cascode_rows():
     assert w(doc, "text:pair.cascode.bias").value == "3.3 V"
     assert parse_si(w(doc, "text:feedback.shunt_capacitance").value, field="",
                     unit="farad") == pytest.approx(8e-12)
+
+
+# ------------------------------------------------------------------ in the browser
+def _psrr_crossing_hz(analysis, rail, target_db):
+    """Lowest frequency where PSRR of ``rail`` falls to ``target_db``: a sign change on a
+    dense log grid, then scipy's brentq on the exact responses (not the app's search)."""
+    from scipy.optimize import brentq
+
+    from freqpair.analysis.supply import single_ended_name
+    se = single_ended_name(analysis.responses)
+
+    def excess(f):
+        r = analysis.responses.at(np.atleast_1d(f))
+        return 20 * np.log10(np.abs(r.get(se)) / np.abs(r.get(f"a_{rail}"))) - target_db
+    sweep = analysis.design.sweep
+    grid = np.logspace(np.log10(sweep.start) - 3, np.log10(sweep.stop), 4000)
+    values = excess(grid)
+    hits = np.nonzero(np.sign(values[:-1]) != np.sign(values[1:]))[0]
+    if not len(hits):
+        return None
+    i = hits[0]
+    return brentq(lambda f: excess(f)[0], grid[i], grid[i + 1], xtol=1e-12, rtol=1e-13)
+
+
+@pytest.mark.browser
+def test_supply_readout_in_the_page_follows_a_typed_tail_capacitance(tmp_path):
+    import os
+    import subprocess
+    import sys
+    import time
+
+    from browser_util import (click_tab, console_errors, free_port, make_driver, stop_server,
+                              type_into, visible_text, wait_for_bokeh, wait_until)
+    t0 = time.monotonic()
+    port = free_port()
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", "--no-browser",
+                             "--port", str(port)], cwd=ROOT, env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    driver = None
+    try:
+        assert f"127.0.0.1:{port}" in proc.stdout.readline()
+        driver = make_driver(tmp_path)
+        driver.get(f"http://127.0.0.1:{port}/")
+        wait_for_bokeh(driver)
+        click_tab(driver, "views", "Supply")
+        before = wait_until(lambda: visible_text(driver, "supply_readout"))
+        click_tab(driver, "controls", "Tail")
+        type_into(driver, "text:tail.capacitance", "20 pF")
+        after = wait_until(lambda: (t := visible_text(driver, "supply_readout")) != before
+                           and t, timeout=15)
+        errors = console_errors(driver)
+    finally:
+        if driver is not None:
+            driver.quit()
+        stop_server(proc)
+    elapsed = time.monotonic() - t0
+    design = freqpair.replace_value(base(), "tail.capacitance", "20 pF")
+    a = freqpair.analyze(design)
+    j = a.to_json()
+    lines = {line.split(" at DC")[0]: line for line in after.splitlines()}
+    for sign, word, rail in (("pos", "PSRR+", "vpos"), ("neg", "PSRR−", "vneg")):
+        line = lines[word]
+        # oracle: analyze() on the same edit — DC PSRR and corner as format_metric writes them
+        assert f"at DC {format_metric(f'psrr_{sign}_db', j[f'psrr_{sign}_db'])}" in line
+        assert f"corner {format_si(j[f'psrr_{sign}_corner_hz'], 'Hz')}" in line
+        # oracle: the 60 dB crossing root-found here with scipy's brentq (4 digits shown)
+        cross = _psrr_crossing_hz(a, rail, 60.0)
+        shown = line.split("falls to 60 dB at ")[1]
+        if cross is None or j[f"psrr_{sign}_db"] <= 60.0:
+            assert shown == "already below at DC"
+        else:
+            assert parse_si(shown, field="", unit="hertz") == pytest.approx(cross, rel=1e-3)
+    assert before != after
+    assert errors == []
+    assert elapsed < 40
