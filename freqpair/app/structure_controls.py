@@ -230,33 +230,32 @@ class StructureControls:
     # ------------------------------------------------------------- pair
     def pair_rows(self, rows, width: int) -> list:
         """The Pair tab: the cascode choice, then the pair device's rows and (when
-        cascoded, behind a switch so the tab fits the screen) the cascode's rows."""
+        cascoded, behind a switch on the same line, so the tab fits the screen) the
+        cascode's rows. A degeneration of 0 is none (DESIGN.md §7a)."""
         from bokeh.layouts import column, row
         from bokeh.models import Div, RadioButtonGroup, Select
         design = self.explorer.design
         has = design.pair.cascode is not None
         choice = Select(name="pair_cascode", value="cascoded" if has else "none",
-                        options=[("none", "none"), ("cascoded", "cascoded (§7c)")],
-                        width=150, height=_ROW_PX, margin=_MARGIN)
+                        options=[("none", "none"), ("cascoded", "cascoded")],
+                        width=104, height=_ROW_PX, margin=_MARGIN)
         choice.on_change("value", self._cascode_changed)
         self.cascode_select = choice
-        head = row(Div(text="<span style='font-size:12px'>cascode devices</span>", width=132,
-                       margin=(6, 4, 0, 4)), choice, name="row:pair_cascode")
+        label = Div(text="<span style='font-size:12px' title='pair.cascode (§7c)'>cascode"
+                         "</span>", width=60, margin=(6, 4, 0, 4))
         own = [r for r in rows if not r.name.startswith("row:pair.cascode.")]
         casc = [r for r in rows if r.name.startswith("row:pair.cascode.")]
-        note = Div(text="<small>degeneration 0 means none (type 0 to remove it)</small>",
-                   width=width - 20, margin=(0, 4, 2, 4))
         if not has:
-            return [head, note, *own]
+            return [row(label, choice, name="row:pair_cascode"), *own]
         own_col = column(*own, spacing=0, name="pair_device_rows")
         casc_col = column(*casc, spacing=0, name="pair_cascode_rows", visible=False)
         which = RadioButtonGroup(name="pair_rows_choice", labels=["pair device", "cascode"],
-                                 active=0, margin=(4, 4, 4, 4))
+                                 active=0, height=_ROW_PX, margin=_MARGIN)
 
         def flip(attr, old, new):
             own_col.visible, casc_col.visible = new == 0, new == 1
         which.on_change("active", flip)
-        return [head, note, which, own_col, casc_col]
+        return [row(label, choice, which, name="row:pair_cascode"), own_col, casc_col]
 
     def _cascode_changed(self, attr, old, new):
         if self.explorer._syncing:
@@ -300,8 +299,9 @@ class StructureControls:
         from bokeh.layouts import row
         from bokeh.models import Button, Div, Select, TextInput
         design = self.explorer.design
-        out = [Div(text="<b>Added elements</b> <small>(parasitics, wiring: §7d; they enter "
-                        "every result)</small>", width=width - 20, margin=(8, 4, 2, 4))]
+        none = "" if design.element else " — none yet"
+        out = [Div(text=f"<b>Added elements</b> <small>(parasitics, wiring: §7d; they enter "
+                        f"every result){none}</small>", width=width - 20, margin=(8, 4, 2, 4))]
         for i, el in enumerate(design.element):
             label = Div(text=f"<span title='element.{i}' style='font-size:12px'>"
                              f"{_html(element_label(el))}</span>", width=200,
@@ -314,18 +314,16 @@ class StructureControls:
                         margin=_MARGIN, button_type="light")
             rm.on_click(self._remover(i))
             out.append(row(label, box, rm, name=f"row:element.{i}"))
-        if not design.element:
-            out.append(Div(text="<small>none yet</small>", margin=(0, 4, 2, 4)))
         nodes = stage_nodes(design)
         opts = [(n, n) for n in nodes]
         self.kind = Select(name="element_kind", value="capacitor",
-                           options=list(ELEMENT_KINDS), width=118, height=_ROW_PX,
+                           options=list(ELEMENT_KINDS), width=106, height=_ROW_PX,
                            margin=_MARGIN)
-        self.node_a = Select(name="element_node_a", value="t", options=opts, width=72,
+        self.node_a = Select(name="element_node_a", value="t", options=opts, width=76,
                              height=_ROW_PX, margin=_MARGIN)
-        self.node_b = Select(name="element_node_b", value="ground", options=opts, width=72,
+        self.node_b = Select(name="element_node_b", value="ground", options=opts, width=76,
                              height=_ROW_PX, margin=_MARGIN)
-        self.value = TextInput(name="element_value", placeholder="150 fF", width=70,
+        self.value = TextInput(name="element_value", placeholder="150 fF", width=58,
                                height=_ROW_PX, margin=_MARGIN)
         self.name = TextInput(name="element_name", placeholder="name (optional)", width=118,
                               height=_ROW_PX, margin=_MARGIN)

@@ -131,27 +131,25 @@ class SupplyPanel:
         self.target_input = TextInput(name="psrr_target_input", title="PSRR target [dB]",
                                       value="60", width=120)
         self.target_input.on_change("value", lambda a, o, n: self._target_changed(n))
-        self.readout_div = Div(name="supply_readout", text="", sizing_mode="stretch_width")
+        self.readout_div = Div(name="supply_readout", text="", width=760)
         self._layout = None
 
     # ------------------------------------------------------------- contract
     def layout(self):
-        """The tab's content (built once): target box, PSRR plot, Z_in plot, readout."""
+        """The tab's content (built once): PSRR plot, Z_in plot, then the target box
+        and the readout."""
         if self._layout is not None:
             return self._layout
         from bokeh.layouts import column, row
-        from bokeh.models import Div
 
         from freqpair.views.stage_plots import input_impedance_figure, psrr_figure
-        psrr = psrr_figure(self.psrr, self.marks, target_line=self.target_line, height=250)
+        psrr = psrr_figure(self.psrr, self.marks, target_line=self.target_line, height=235)
         psrr.name = "psrr_figure"
         zin = input_impedance_figure(self.zin, self.zin_marks, x_range=psrr.x_range,
-                                     height=200)
+                                     height=185)
         zin.name = "zin_figure"
-        note = Div(text="<small>The rails driven one at a time (inputs at 0), seen at the "
-                        "single-ended output: PSRR = |A_se/A_rail|. The triangles mark where "
-                        "each PSRR falls to the target.</small>", width=520)
-        self._layout = column(row(self.target_input, note), psrr, zin, self.readout_div,
+        # the readout beside the target box, under the plots (all of it within 1366×768)
+        self._layout = column(psrr, zin, row(self.target_input, self.readout_div),
                               sizing_mode="stretch_width")
         return self._layout
 
@@ -193,13 +191,17 @@ class SupplyPanel:
         lines = []
         for sign in ("pos", "neg"):
             dc, corner, cross = r[f"psrr_{sign}"]
+            where = (f"falls to {t} at {_html(cross)}" if cross.endswith("Hz")
+                     else f"{t} target: {_html(cross)}")
             lines.append(f"<b>PSRR{_SIGN[sign]}</b> at DC {_html(dc)} · corner {_html(corner)}"
-                         f" · falls to {t} at {_html(cross)}")
+                         f" · {where}")
         dm, cm, corner = r["zin"]
         lines.append(f"<b>Z_in</b> differential {_html(dm)} · common-mode {_html(cm)} · "
                      f"differential corner {_html(corner)}")
-        return ("<div style='font-family:sans-serif;font-size:13px;line-height:1.5'>"
-                + "<br>".join(lines) + "</div>")
+        return ("<div style='font-family:sans-serif;font-size:13px;line-height:1.45'>"
+                + "<br>".join(lines) + "<br><small>The rails driven one at a time (inputs "
+                "at 0), seen at the single-ended output: PSRR = |A_se/A_rail|; the triangles "
+                "mark where each PSRR falls to the target.</small></div>")
 
     def _target_changed(self, text: str) -> None:
         say = self._explorer._say if self._explorer is not None else None
