@@ -17,7 +17,7 @@ change keeps the last good design on screen.
 """
 from __future__ import annotations
 
-from freqpair.design.errors import DesignError
+from freqpair.design.errors import DesignError, FreqpairError
 from freqpair.design.schema import design_to_dict, parse_design, stage_nodes
 from freqpair.design.quantities import format_si
 
@@ -55,7 +55,8 @@ def cascode_defaults(design) -> dict:
     emitter/source and the output node of the design without a cascode, so
     the pair device and the cascode share the headroom, rounded to 10 mV:
     bias = (V_E + V_O)/2 + V_BE (npn; V_GS for MOS at the device's I_D; signs
-    swapped for pnp/pmos).
+    swapped for pnp/pmos); unrounded where the rounding would cost a device its
+    headroom.
 
     Raises
     ------
@@ -76,7 +77,14 @@ def cascode_defaults(design) -> dict:
     v_c = 0.5 * (op.v_emitter + op.v_output)
     casc = {k: v for k, v in pair.items() if k not in _PAIR_ONLY}
     casc["type"] = dev.type
-    casc["bias"] = round(v_c + polarity(dev) * drop, 2)
+    exact = v_c + polarity(dev) * drop
+    casc["bias"] = round(exact, 2)
+    trial = dict(data)
+    trial["pair"] = dict(pair, cascode=casc)
+    try:                 # where the headroom is tight, 10 mV of rounding can cost it
+        pair_operating_point(parse_design(trial))
+    except FreqpairError:
+        casc["bias"] = exact
     return casc
 
 
