@@ -42,7 +42,6 @@ from freqpair.views.plots import (
     show_legend_item,
 )
 from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
-from freqpair.app.redraw import REDRAW_TABLE_JS as _REDRAW_TABLE_JS  # noqa: F401 (kept name)
 from freqpair.app.redraw import redraw_on_new_data as _redraw_on_new_data
 from freqpair.app.structure_controls import StructureControls, structure_key
 
