@@ -280,6 +280,10 @@ class Mirror:
                       what="target")
 
     def _feedback(self, rng, doc) -> Change:
+        fb = self.design.feedback
+        if fb is not None and fb.type == "divider":     # no β_f box under a divider (§7e)
+            return self._text(doc, "feedback.shunt_capacitance",
+                              f"{10 ** rng.uniform(-13, -11):.3g}", False, "divider")
         if self.design.feedback is not None and rng.random() < 0.5:
             return self._text(doc, "feedback.factor", "", False, "loop off")
         return self._text(doc, "feedback.factor", f"{10 ** rng.uniform(-3, 0):.3g}", False,

@@ -13,6 +13,6 @@ __all__ = ["make_panels"]
 def make_panels() -> list:
     """New panel objects for one session, in tab order."""
     from freqpair.app.loop_panel import LoopPanel
-    panels = []
-    panels.append(LoopPanel())
-    return panels
+    from freqpair.app.noise_panel import NoisePanel
+    from freqpair.app.supply_panel import SupplyPanel
+    return [LoopPanel(), SupplyPanel(), NoisePanel()]

@@ -47,6 +47,8 @@ from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_te
 from freqpair.app.sources import set_columns
 from freqpair.app.limits import MAX_PINS, N_POINTS
 from freqpair.app.pole_paths import PolePaths
+from freqpair.app.redraw import redraw_on_new_data as _redraw_on_new_data
+from freqpair.app.structure_controls import StructureControls, structure_key
 
 __all__ = ["make_doc", "Explorer", "MAX_FILE_BYTES", "N_POINTS", "MAX_PINS", "Pin"]
 
@@ -78,23 +80,6 @@ const a = document.createElement("a");
 a.href = url; a.download = d.filename[0];
 document.body.appendChild(a); a.click(); a.remove();
 setTimeout(() => URL.revokeObjectURL(url), 1000);
-"""
-
-#: Redraw a DataTable's cells when its source gets new data. Bokeh 3.9's table view
-#: redraws only when the table's CDSView changes, and replacing ``source.data``
-#: with the same number of rows leaves the view's indices equal, so the page kept
-#: the old cells (3.4–3.8 and 3.10 redraw; measured in DEVELOPERS.md). This calls
-#: the table view's own ``updateGrid`` — what 3.10 connects to the source itself —
-#: after the whole server message is applied (a microtask), keeping the scroll
-#: position, sorting and column widths. ``rerender`` is the fallback should the
-#: method ever be missing.
-_REDRAW_TABLE_JS = """
-Promise.resolve().then(() => {
-  for (const view of Bokeh.index.find(table)) {
-    if (typeof view.updateGrid === "function") { view.updateGrid(); }
-    else if (typeof view.rerender === "function") { view.rerender(); }
-  }
-});
 """
 
 #: Table heights: the Numbers and Hand estimates views fit a 1366×768 screen (the
@@ -136,11 +121,6 @@ def _repaint_legends_on_change(fig) -> None:
         for item in legend.items:
             item.js_on_change("label", code)
             item.js_on_change("visible", code)
-
-
-def _redraw_on_new_data(table) -> None:
-    """Make the page redraw ``table``'s cells whenever its source's data is replaced."""
-    table.source.js_on_change("data", CustomJS(args={"table": table}, code=_REDRAW_TABLE_JS))
 
 
 @dataclass(frozen=True)
@@ -216,6 +196,7 @@ class Explorer:
         self._files = None
         self._rows: dict = {}        # design key -> (line, text box, slider or None)
         self._loop_fixed = None      # the Loop tab's headings and second-stage button
+        self.structure = StructureControls(self)
         self.kind_selects = {}
         self.texts: dict = {}     # design key -> TextInput
         self.sliders: dict = {}   # design key -> Slider
@@ -341,6 +322,10 @@ class Explorer:
             rows = [self._value_row(ev) for ev in values if ev.key.startswith(prefixes)]
             if title == "Loop":
                 rows = self._loop_rows(rows)
+            elif title == "Pair":
+                rows = self.structure.pair_rows(rows, SIDEBAR_PX)
+            elif title == "More":
+                rows = rows + self.structure.element_rows(SIDEBAR_PX)
             columns.append(rows)
         if not self.controls.tabs:
             if self._files is None:
@@ -349,16 +334,18 @@ class Explorer:
                                   for (title, _), rows in zip(_SECTIONS, columns)] + [
                 TabPanel(title="Files", child=self._files)]
         else:
+            reusable = {id(v[0]) for v in self._rows.values()}
+            reusable.update(id(x) for x in self._loop_fixed or ())
             for panel, rows in zip(self.controls.tabs, columns):
-                _show_lines(panel.child, rows)
+                _show_lines(panel.child, rows, reusable)
         self._sync_kinds()
         self._sync_controls()
 
     def _loop_rows(self, rows):
         """The "Loop" tab: the feedback factor (empty box: no loop) and the second stage,
         with a button that adds (freqpair's default values) or removes it."""
-        feedback = [r for r in rows if r.name == "row:feedback.factor"]
-        stage = [r for r in rows if r.name != "row:feedback.factor"]
+        feedback = [r for r in rows if r.name.startswith("row:feedback.")]
+        stage = [r for r in rows if not r.name.startswith("row:feedback.")]
         if not feedback:
             # no loop: the factor's own line (one per session), its box empty, no slider
             if "feedback.factor" not in self._rows:
@@ -379,20 +366,21 @@ class Explorer:
             slider.visible = False
             self.texts["feedback.factor"] = fb
             feedback = [line]
-        else:
+        elif "feedback.factor" in self.sliders:
             self.sliders["feedback.factor"].visible = True
         if self._loop_fixed is None:
             toggle = Button(name="second_stage_toggle", width=170, margin=(4, 5, 4, 5))
             toggle.on_click(self.toggle_second_stage)
             self._loop_fixed = (
-                _heading("Feedback", "empty the β_f box for no loop"),
+                _heading("Feedback", "a fixed factor or a divider; an empty β_f box: no loop"),
                 _heading("Second stage", "a gain stage on o2; with it the gain plotted "
                                          "and the loop use A_total"),
                 toggle)
         heading_fb, heading_stage, toggle = self._loop_fixed
         has = self.design.second_stage is not None
         toggle.label = "Remove second stage" if has else "Add second stage"
-        return [heading_fb, *feedback, heading_stage, toggle, *stage]
+        return [heading_fb, self.structure.feedback_row(), *feedback, heading_stage, toggle,
+                *stage]
 
     def _value_row(self, ev):
         """One compact line per value: label, entry box and (not for counts) a slider
@@ -502,12 +490,30 @@ class Explorer:
         return True
 
     def _apply_and_rebuild(self, design) -> bool:
-        """Apply ``design``; rebuild the controls when an optional section came or went."""
-        before = (self.design.feedback is not None, self.design.second_stage is not None)
+        """Apply ``design``; rebuild the controls when the stage's structure changed (an
+        optional section, the loop kind, a cascode, degeneration on/off, the elements)."""
+        before = structure_key(self.design)
         ok = self.apply(design)
-        if ok and (design.feedback is not None, design.second_stage is not None) != before:
+        if ok and structure_key(design) != before:
             self._build_controls()
         return ok
+
+    def apply_structure(self, make) -> bool:
+        """Apply ``make(self.design)`` (a cascode, element or loop-kind change); a refused
+        change (one line) keeps the last good design and its selectors."""
+        try:
+            design = make(self.design)
+        except FreqpairError as exc:
+            self._say(f"{exc} — kept the last good result", bad=True)
+            design = None
+        if design is not None and self._apply_and_rebuild(design):
+            return True
+        self._syncing = True
+        try:
+            self.structure.sync()
+        finally:
+            self._syncing = False
+        return False
 
     def toggle_second_stage(self) -> bool:
         """Add a second stage (freqpair's default values) or remove the one there is."""
@@ -812,23 +818,41 @@ class Explorer:
         return False
 
 
-def _show_lines(col, lines) -> None:
-    """Show exactly ``lines`` in column ``col``, in that order, hiding its others.
+def _descendants(lines) -> list:
+    """Every layout and widget inside ``lines`` (and the lines themselves)."""
+    out, todo = [], list(lines)
+    while todo:
+        x = todo.pop()
+        out.append(x)
+        todo.extend(getattr(x, "children", None) or ())
+    return out
 
-    The column's children are replaced only when a line is new to it or the
-    order differs (rare: the first time a key is seen); otherwise only the
-    lines' ``visible`` flags change.
+
+def _show_lines(col, lines, reusable: set) -> None:
+    """Show exactly ``lines`` in column ``col``, in that order.
+
+    Lines made once per session (ids in ``reusable``) that the design does not
+    use now stay in the column, hidden, to be shown again later; any other
+    line the column held is dropped. The column's children are replaced only
+    when a line is new to it or the order differs (the first time a key is
+    seen, or a structure control's fresh line); otherwise only ``visible``
+    flags change. A reused line nested in a fresh container (e.g. the pair's
+    rows behind the cascode switch) leaves the column's top level.
     """
+    inside = {id(x) for x in _descendants(lines)}
     children = list(col.children)
-    wanted = {id(x) for x in lines}
+    hidden = [x for x in children if id(x) not in inside and id(x) in reusable]
     position = {id(x): k for k, x in enumerate(children)}
     order = [position.get(id(x)) for x in lines]
-    if None in order or order != sorted(order):
-        col.children = list(lines) + [x for x in children if id(x) not in wanted]
-    for x in col.children:
-        shown = id(x) in wanted
-        if x.visible != shown:
-            x.visible = shown
+    if (None in order or order != sorted(order)
+            or len(children) != len(lines) + len(hidden)):
+        col.children = list(lines) + hidden
+    for x in _descendants(lines):
+        if id(x) in reusable and not x.visible:
+            x.visible = True
+    for x in hidden:
+        if x.visible:
+            x.visible = False
 
 
 _TEXT_PX, _SLIDER_PX, _LABEL_PX = 96, 130, 132

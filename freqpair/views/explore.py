@@ -54,6 +54,11 @@ _UNITS = {
     "output_resistance": ("Ω", "log"), "input_capacitance": ("F", "log"),
     "load_capacitance": ("F", "log"), "miller_capacitance": ("F", "log"),
     "nulling_resistance": ("Ω", "log"),
+    "series_resistance": ("Ω", "log"), "shunt_resistance": ("Ω", "log"),
+    "series_capacitance": ("F", "log"), "shunt_capacitance": ("F", "log"),
+    "bias": ("V", "linear"), "surface_potential": ("V", "linear"), "csb": ("F", "log"),
+    "flicker_corner": ("Hz", "log"), "noise_gamma": ("", "linear"),
+    "body_effect": ("", "linear"),
 }
 _BY_KEY = {"mismatch.load": ("", "linear"), "mismatch.gm": ("", "linear"),
            "second_stage.gm": ("S", "log")}

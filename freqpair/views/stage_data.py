@@ -183,7 +183,8 @@ def noise_view(analysis, f_hz, at_hz: float | None = None) -> dict:
     dict
         ``curves`` (``f_hz``, ``en_v_rthz``, ``out_v_rthz``), ``at_hz``, the
         ``contributors`` table (``name``, ``share`` [%] text, ``density``
-        text: each source's share of the input-referred density), the spot
+        text: each source's share of the input-referred density; the same as
+        numbers in ``share_pct`` [%] and ``density_v_rthz`` [V/√Hz]), the spot
         mark, and ``result`` (the JSON noise object's values: spots, rms).
     """
     from freqpair.analysis.noise import noise_curves
@@ -196,13 +197,16 @@ def noise_view(analysis, f_hz, at_hz: float | None = None) -> dict:
     shares = spot.shares()[0]
     order = np.argsort(-shares, kind="stable")
     en_total = float(spot.input_v_rthz[0])
-    table = {"name": [], "share": [], "density": []}
+    table = {"name": [], "share": [], "density": [], "share_pct": [], "density_v_rthz": []}
     for k in order:
         if shares[k] <= 0:
             continue
+        part = en_total * math.sqrt(shares[k])
         table["name"].append(spot.names[k])
         table["share"].append(f"{100 * shares[k]:.2f} %")
-        table["density"].append(format_si(en_total * math.sqrt(shares[k]), "V/√Hz"))
+        table["density"].append(format_si(part, "V/√Hz"))
+        table["share_pct"].append(100 * float(shares[k]))
+        table["density_v_rthz"].append(part)
     mark = _mark(at, en_total, f"e_n {format_si(en_total, 'V/√Hz')} at {format_si(at, 'Hz')}")
     return {"curves": {"f_hz": f, "en_v_rthz": nc.input_v_rthz, "out_v_rthz": nc.output_v_rthz},
             "at_hz": at, "contributors": table, "marks": {"spot": mark}, "result": res}
