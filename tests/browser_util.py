@@ -116,6 +116,7 @@ return [...view.shadow_el.querySelectorAll('.bk-tab')].find(e => e.textContent =
 
 _TEXT_JS = _LIVE + """
 const view = live(arguments[0]);
+if (view === null) { return ""; }      // not drawn (yet): a view built when first opened
 return [...view.shadow_el.children].filter(e => e.tagName !== 'STYLE' && e.tagName !== 'LINK')
        .map(e => e.innerText).join('');
 """
@@ -173,7 +174,8 @@ def type_into(driver, input_name: str, text: str) -> None:
 
 
 def visible_text(driver, name: str) -> str:
-    """The rendered text (``innerText``) of the widget named ``name`` (e.g. a Div)."""
+    """The rendered text (``innerText``) of the widget named ``name`` (e.g. a Div);
+    ``""`` while the page has not drawn it (yet)."""
     return driver.execute_script(_TEXT_JS, name)
 
 

@@ -244,17 +244,22 @@ class StructureControls:
         from bokeh.models import Div, RadioButtonGroup, Select
         design = self.explorer.design
         has = design.pair.cascode is not None
-        choice = Select(name="pair_cascode", value="cascoded" if has else "none",
-                        options=[("none", "none"), ("cascoded", "cascoded")],
-                        width=104, height=_ROW_PX, margin=_MARGIN)
-        choice.on_change("value", self._cascode_changed)
-        self.cascode_select = choice
-        label = Div(text="<span style='font-size:12px' title='pair.cascode (§7c)'>cascode"
-                         "</span>", width=60, margin=(6, 4, 0, 4))
+        if getattr(self, "_cascode_line", None) is None:    # made once, then reused
+            choice = Select(name="pair_cascode", value="cascoded" if has else "none",
+                            options=[("none", "none"), ("cascoded", "cascoded")],
+                            width=104, height=_ROW_PX, margin=_MARGIN)
+            choice.on_change("value", self._cascode_changed)
+            self.cascode_select = choice
+            label = Div(text="<span style='font-size:12px' title='pair.cascode (§7c)'>"
+                             "cascode</span>", width=60, margin=(6, 4, 0, 4))
+            self._cascode_line = row(label, choice, name="row:pair_cascode")
+        choice = self.cascode_select
+        label = self._cascode_line.children[0]
+        self._set_quietly(choice, "cascoded" if has else "none")
         own = [r for r in rows if not r.name.startswith("row:pair.cascode.")]
         casc = [r for r in rows if r.name.startswith("row:pair.cascode.")]
         if not has:
-            return [row(label, choice, name="row:pair_cascode"), *own]
+            return [self._cascode_line, *own]
         own_col = column(*own, spacing=0, name="pair_device_rows")
         casc_col = column(*casc, spacing=0, name="pair_cascode_rows", visible=False)
         which = RadioButtonGroup(name="pair_rows_choice", labels=["pair device", "cascode"],
@@ -263,7 +268,18 @@ class StructureControls:
         def flip(attr, old, new):
             own_col.visible, casc_col.visible = new == 0, new == 1
         which.on_change("active", flip)
+        self._cascode_line = None          # its widgets now sit in this line
         return [row(label, choice, which, name="row:pair_cascode"), own_col, casc_col]
+
+    def _set_quietly(self, widget, value) -> None:
+        """Show ``value`` in a selector without it counting as the user's choice."""
+        if widget.value != value:
+            before = self.explorer._syncing
+            self.explorer._syncing = True
+            try:
+                widget.value = value
+            finally:
+                self.explorer._syncing = before
 
     def _cascode_changed(self, attr, old, new):
         if self.explorer._syncing:
@@ -288,13 +304,17 @@ class StructureControls:
         from bokeh.models import Div, Select
         design = self.explorer.design
         now = design.feedback.type if design.feedback is not None else "none"
-        sel = Select(name="feedback_kind", value=now,
-                     options=[(k, _WORDS[k]) for k in FEEDBACK_KINDS], width=170,
-                     height=_ROW_PX, margin=_MARGIN)
-        sel.on_change("value", self._feedback_changed)
-        self.feedback_select = sel
-        return row(Div(text="<span style='font-size:12px'>loop</span>", width=132,
-                       margin=(6, 4, 0, 4)), sel, name="row:feedback_kind")
+        if getattr(self, "_feedback_line", None) is None:   # made once, then reused
+            sel = Select(name="feedback_kind", value=now,
+                         options=[(k, _WORDS[k]) for k in FEEDBACK_KINDS], width=170,
+                         height=_ROW_PX, margin=_MARGIN)
+            sel.on_change("value", self._feedback_changed)
+            self.feedback_select = sel
+            self._feedback_line = row(Div(text="<span style='font-size:12px'>loop</span>",
+                                          width=132, margin=(6, 4, 0, 4)), sel,
+                                      name="row:feedback_kind")
+        self._set_quietly(self.feedback_select, now)
+        return self._feedback_line
 
     def _feedback_changed(self, attr, old, new):
         if self.explorer._syncing:
@@ -303,55 +323,83 @@ class StructureControls:
 
     # ------------------------------------------------------------- elements
     def element_rows(self, width: int) -> list:
-        """The added elements (value box and remove button each) and an "add" row."""
+        """The added elements (value box and remove button each) and an "add" row.
+
+        The heading and the "add" rows are made once per session, an element's
+        line once per (position, element): a rebuild for another reason sends
+        the page no new widgets.
+        """
         from bokeh.layouts import row
         from bokeh.models import Button, Div, Select, TextInput
         design = self.explorer.design
         none = "" if design.element else " — none yet"
-        out = [Div(text=f"<b>Added elements</b> <small>(parasitics, wiring: §7d; they enter "
-                        f"every result){none}</small>", width=width - 20, margin=(8, 4, 2, 4))]
-        for i, el in enumerate(design.element):
-            label = Div(text=f"<span title='element.{i}' style='font-size:12px'>"
-                             f"{_html(element_label(el))}</span>", width=200,
-                        margin=(6, 4, 0, 4))
-            box = TextInput(name=f"text:element.{i}.value", width=90, height=_ROW_PX,
-                            margin=_MARGIN, value=format_si(el.value, ELEMENT_KINDS[el.kind],
-                                                            digits=6))
-            box.on_change("value", self._value_changed(i))
-            rm = Button(label="×", name=f"remove_element:{i}", width=30, height=_ROW_PX,
-                        margin=_MARGIN, button_type="light")
-            rm.on_click(self._remover(i))
-            out.append(row(label, box, rm, name=f"row:element.{i}"))
         nodes = stage_nodes(design)
         opts = [(n, n) for n in nodes]
-        self.kind = Select(name="element_kind", value="capacitor",
-                           options=list(ELEMENT_KINDS), width=106, height=_ROW_PX,
-                           margin=_MARGIN)
-        self.node_a = Select(name="element_node_a", value="t", options=opts, width=76,
-                             height=_ROW_PX, margin=_MARGIN)
-        self.node_b = Select(name="element_node_b", value="ground", options=opts, width=76,
-                             height=_ROW_PX, margin=_MARGIN)
-        self.value = TextInput(name="element_value", placeholder="150 fF", width=58,
-                               height=_ROW_PX, margin=_MARGIN)
-        self.name = TextInput(name="element_name", placeholder="name (optional)", width=118,
-                              height=_ROW_PX, margin=_MARGIN)
-        self.ctl_a = Select(name="element_control_a", value="o1", options=opts, width=72,
-                            height=_ROW_PX, margin=_MARGIN, visible=False)
-        self.ctl_b = Select(name="element_control_b", value="ground", options=opts, width=72,
-                            height=_ROW_PX, margin=_MARGIN, visible=False)
-        ctl_words = Div(text="<span style='font-size:12px'>controlled by</span>",
-                        margin=(6, 4, 0, 4), visible=False)
+        if getattr(self, "_element_fixed", None) is None:
+            heading = Div(width=width - 20, margin=(8, 4, 2, 4))
+            self.kind = Select(name="element_kind", value="capacitor",
+                               options=list(ELEMENT_KINDS), width=106, height=_ROW_PX,
+                               margin=_MARGIN)
+            self.node_a = Select(name="element_node_a", value="t", options=opts, width=76,
+                                 height=_ROW_PX, margin=_MARGIN)
+            self.node_b = Select(name="element_node_b", value="ground", options=opts, width=76,
+                                 height=_ROW_PX, margin=_MARGIN)
+            self.value = TextInput(name="element_value", placeholder="150 fF", width=58,
+                                   height=_ROW_PX, margin=_MARGIN)
+            self.name = TextInput(name="element_name", placeholder="name (optional)",
+                                  width=118, height=_ROW_PX, margin=_MARGIN)
+            self.ctl_a = Select(name="element_control_a", value="o1", options=opts, width=72,
+                                height=_ROW_PX, margin=_MARGIN, visible=False)
+            self.ctl_b = Select(name="element_control_b", value="ground", options=opts,
+                                width=72, height=_ROW_PX, margin=_MARGIN, visible=False)
+            ctl_words = Div(text="<span style='font-size:12px'>controlled by</span>",
+                            margin=(6, 4, 0, 4), visible=False)
 
-        def kind_changed(attr, old, new):
-            for w in (self.ctl_a, self.ctl_b, ctl_words):
-                w.visible = new == "transconductance"
-        self.kind.on_change("value", kind_changed)
-        add = Button(label="Add", name="add_element", width=44, height=_ROW_PX,
-                     margin=_MARGIN, button_type="primary")
-        add.on_click(self.add)
-        out += [row(self.kind, self.node_a, self.node_b, self.value, add, name="row:add_element"),
-                row(self.name, ctl_words, self.ctl_a, self.ctl_b, name="row:add_element_2")]
-        return out
+            def kind_changed(attr, old, new):
+                for w in (self.ctl_a, self.ctl_b, ctl_words):
+                    w.visible = new == "transconductance"
+            self.kind.on_change("value", kind_changed)
+            add = Button(label="Add", name="add_element", width=44, height=_ROW_PX,
+                         margin=_MARGIN, button_type="primary")
+            add.on_click(self.add)
+            self._element_fixed = (
+                heading,
+                row(self.kind, self.node_a, self.node_b, self.value, add,
+                    name="row:add_element"),
+                row(self.name, ctl_words, self.ctl_a, self.ctl_b, name="row:add_element_2"))
+            self._element_lines = {}
+        heading, add_row, add_row_2 = self._element_fixed
+        heading.text = (f"<b>Added elements</b> <small>(parasitics, wiring: §7d; they enter "
+                        f"every result){none}</small>")
+        names = [n for n, _ in opts]
+        for sel, fallback in ((self.node_a, "t"), (self.node_b, "ground"),
+                              (self.ctl_a, "o1"), (self.ctl_b, "ground")):
+            if list(sel.options) != opts:
+                sel.options = opts
+            if sel.value not in names:
+                sel.value = fallback if fallback in names else names[0]
+        out = [heading]
+        lines = {}
+        for i, el in enumerate(design.element):
+            text = element_label(el)
+            value = format_si(el.value, ELEMENT_KINDS[el.kind], digits=6)
+            line = self._element_lines.get((i, text))
+            if line is None:
+                label = Div(text=f"<span title='element.{i}' style='font-size:12px'>"
+                                 f"{_html(text)}</span>", width=200, margin=(6, 4, 0, 4))
+                box = TextInput(name=f"text:element.{i}.value", width=90, height=_ROW_PX,
+                                margin=_MARGIN, value=value)
+                box.on_change("value", self._value_changed(i))
+                rm = Button(label="×", name=f"remove_element:{i}", width=30, height=_ROW_PX,
+                            margin=_MARGIN, button_type="light")
+                rm.on_click(self._remover(i))
+                line = row(label, box, rm, name=f"row:element.{i}")
+            else:
+                self._set_quietly(line.children[1], value)
+            lines[(i, text)] = line
+            out.append(line)
+        self._element_lines = lines          # lines of removed elements are let go
+        return out + [add_row, add_row_2]
 
     def add(self) -> bool:
         """Add the element described by the "add" row (refused with one line when invalid)."""

@@ -268,8 +268,11 @@ class Explorer:
                 hand)),
         ])
         self._fixed_views = len(main.tabs)
+        # a panel's figures join the page when its view is first opened: until then
+        # every message to the page walks a document half the size (_show_panel)
+        self._built = set()
         for panel in self.panels:
-            main.tabs.append(TabPanel(title=panel.title, child=panel.layout()))
+            main.tabs.append(TabPanel(title=panel.title, child=Div(text="")))
         main.on_change("active", lambda a, o, n: self._view_opened(n))
         sidebar = column(
             row(*self.kind_selects.values()),
@@ -572,7 +575,8 @@ class Explorer:
         """Add a view that is computed only while it is shown.
 
         ``panel`` has a ``title`` (its tab's words), ``layout()`` (the Bokeh
-        model, built once, fed from the panel's own data sources) and
+        model, built once when the view is first opened, fed from the panel's
+        own data sources) and
         ``show(explorer)`` (fill those sources from ``explorer.analysis`` and
         ``explorer.design``). ``show`` runs when the panel's tab is opened and,
         while it is open, after every accepted change; a hidden panel is only
@@ -638,6 +642,14 @@ class Explorer:
     def _show_panel(self, k) -> None:
         if k is None or k not in self._stale or self.analysis is None:
             return
+        if k not in self._built:                 # first opened: build its figures
+            # a new TabPanel (the page redraws the tabs; a changed child alone it
+            # would not draw)
+            tabs = list(self._views.tabs)
+            i = self._fixed_views + k
+            tabs[i] = TabPanel(title=tabs[i].title, child=self.panels[k].layout())
+            self._views.tabs = tabs
+            self._built.add(k)
         try:
             self.panels[k].show(self)
         except FreqpairError as exc:

@@ -125,6 +125,10 @@ def cmd_app(args) -> int:
     limit_blas_threads()
     if procs > 1:
         _supervise_signals()
+        # the explorer's modules (Bokeh, NumPy, SciPy, freqpair) loaded once before
+        # the fork: the server processes share their pages instead of each loading them
+        import freqpair.app.view  # noqa: F401
+        import freqpair.app.panels  # noqa: F401
     try:
         server = make_server(path, args.port, procs)
     except OSError as exc:
