@@ -1,0 +1,91 @@
+"""``freqpair app --procs N``: several server processes behind one port.
+
+Checks what a team relies on: sessions on the shared port are served by more
+than one process, each answers with the library's numbers, and one SIGTERM
+(or Ctrl-C) to the command stops every process it started (none left behind).
+"""
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from freqpair.design.files import BUILTIN_EXAMPLE, design_from_text
+from freqpair.views.explore import explore, explore_grid
+
+from browser_util import free_port
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def _children(pid: int) -> list[int]:
+    path = Path(f"/proc/{pid}/task/{pid}/children")
+    return [int(x) for x in path.read_text().split()] if path.exists() else []
+
+
+def _alive(pid: int) -> bool:
+    try:
+        state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+    except FileNotFoundError:
+        return False
+    return state != "Z"
+
+
+@pytest.fixture
+def two_procs():
+    if not Path("/proc/self/stat").exists() or not hasattr(os, "fork"):
+        pytest.skip("needs fork and /proc")
+    port = free_port()
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", "--port", str(port),
+                             "--procs", "2", "--no-browser"], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, cwd=ROOT, env=env)
+    try:
+        line = proc.stdout.readline()
+        assert "freqpair explorer at" in line and "2 server processes" in line, line
+        yield proc, port
+    finally:
+        if proc.poll() is None:
+            for child in _children(proc.pid):
+                os.kill(child, signal.SIGKILL)
+            proc.kill()
+            proc.wait()
+        proc.stdout.close()
+        proc.stderr.close()
+
+
+def test_sessions_are_served_by_several_processes_and_sigterm_stops_them_all(two_procs):
+    from bokeh.client import pull_session
+    proc, port = two_procs
+    servers = _children(proc.pid)
+    assert len(servers) == 2                                  # the supervisor's two
+    want = explore(design_from_text(BUILTIN_EXAMPLE),
+                   explore_grid(design_from_text(BUILTIN_EXAMPLE), 500))["curves"]
+    # oracle: freqpair.views.explore.explore (the library) on the built-in example
+    sessions = [pull_session(url=f"http://127.0.0.1:{port}/") for _ in range(6)]
+    try:
+        for s in sessions:
+            got = s.document.select_one({"name": "curves_source"}).data
+            np.testing.assert_array_equal(np.asarray(got["cmrr_db"]), want["cmrr_db"])
+    finally:
+        for s in sessions:
+            s.close()
+    proc.send_signal(signal.SIGTERM)
+    assert proc.wait(timeout=30) == 0
+    time.sleep(0.2)
+    assert not any(_alive(pid) for pid in servers), "a server process outlived the command"
+    assert "freqpair explorer stopped" in proc.stderr.read()
+
+
+def test_procs_out_of_range_is_one_line(tmp_path):
+    run = subprocess.run([sys.executable, "-m", "freqpair.cli", "app", "--procs", "0",
+                          "--no-browser"], capture_output=True, text=True, timeout=60, cwd=ROOT,
+                         env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
+    assert run.returncode == 2 and run.stderr.strip() == \
+        "freqpair: error: --procs = 0: must be between 1 and 64"
