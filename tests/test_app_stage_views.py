@@ -449,3 +449,41 @@ def _shown(doc, name: str) -> bool:
         for tab in getattr(model, "tabs", None) or ():
             todo.append((tab.child, seen))
     return False
+
+
+def test_pinned_designs_are_drawn_on_the_supply_and_noise_plots_and_named():
+    # oracle: freqpair.views.stage_data.supply_view and freqpair.analysis.noise.noise_curves
+    # (the library) on the pinned design, and the explorer's own pin words
+    from freqpair.analysis.noise import noise_curves
+    from freqpair.app.limits import N_POINTS
+    from freqpair.views.explore import explore_grid
+    from freqpair.views.plots import pin_legend_items
+    from freqpair.views.stage_data import supply_view
+    doc, ex = session()
+    pinned_design = ex.design
+    ex.pin()
+    ex.edit("tail.capacitance", "20 pF")
+    f = explore_grid(pinned_design, N_POINTS)
+    a = freqpair.analyze(pinned_design)
+    want_psrr = supply_view(a, f)["curves"]
+    want_en = noise_curves(a.responses, f).input_v_rthz
+    for view, panel_type, fig_name in (("Supply", "SupplyPanel", "psrr_figure"),
+                                       ("Noise", "NoisePanel", "noise_figure")):
+        ex.show_view(view)
+        panel = next(p for p in ex.panels if type(p).__name__ == panel_type)
+        src = panel.pinned.sources[0].data
+        if view == "Supply":
+            np.testing.assert_array_equal(src["psrr_pos_db"], want_psrr["psrr_pos_db"])
+            np.testing.assert_array_equal(src["psrr_neg_db"], want_psrr["psrr_neg_db"])
+        else:
+            np.testing.assert_array_equal(src["en_v_rthz"], want_en)
+        fig = doc.select_one({"name": fig_name})
+        items = pin_legend_items(fig, 0)
+        assert items and all(i.visible for i in items)
+        assert all(i.label.value == ex.pin_labels()[0] for i in items)
+        assert not any(i.visible for i in pin_legend_items(fig, 1))     # no second pin
+    ex.clear_pins()                     # the Noise view is open: its pin goes at once
+    noise = next(p for p in ex.panels if type(p).__name__ == "NoisePanel")
+    assert all(len(v) == 0 for v in noise.pinned.sources[0].data.values())
+    assert not any(i.visible for i in pin_legend_items(doc.select_one({"name": "noise_figure"}),
+                                                         0))

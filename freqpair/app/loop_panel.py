@@ -171,19 +171,8 @@ class LoopPanel:
 
     def _label_pins(self, shown) -> None:
         """Show each slot's legend items with its pin's words; hide the others."""
-        from bokeh.core.properties import value
-
-        from freqpair.app.limits import MAX_PINS
-        from freqpair.views.plots import pin_legend_items
-        by_slot = dict(shown)
-        for fig in self.figures:
-            for slot in range(MAX_PINS):
-                for item in pin_legend_items(fig, slot):
-                    on = slot in by_slot
-                    if item.visible != on:
-                        item.visible = on
-                    if on and item.label != value(by_slot[slot]):
-                        item.label = value(by_slot[slot])
+        from freqpair.app.pinned import label_pin_legends
+        label_pin_legends(self.figures, shown)
 
     def readout_texts(self) -> list[str]:
         """The marks' texts on screen, in :data:`MARK_KEYS` order (missing ones left out)."""

@@ -12,6 +12,7 @@ import numpy as np
 from freqpair.design.errors import DesignError, FreqpairError
 from freqpair.design.quantities import format_si, parse_si
 from freqpair.app.redraw import redraw_on_new_data
+from freqpair.app.pinned import NO_PINS, PinnedCurves
 
 __all__ = ["NoisePanel", "parse_frequency", "noise_readout", "CONTRIBUTOR_COLUMNS"]
 
@@ -65,6 +66,16 @@ def _html(text: str) -> str:
     return str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
 
 
+def _pinned_density(design) -> dict:
+    """A pinned design's input-referred density on its own explorer grid."""
+    from freqpair.analysis.noise import noise_curves
+    from freqpair.analysis.result import analyze
+    from freqpair.app.limits import N_POINTS
+    from freqpair.views.explore import explore_grid
+    f = explore_grid(design, N_POINTS)
+    return {"f_hz": f, "en_v_rthz": noise_curves(analyze(design).responses, f).input_v_rthz}
+
+
 class NoisePanel:
     """Input-referred noise density with a spot mark at a chosen frequency, the
     contributors there and the band's rms.
@@ -108,6 +119,8 @@ class NoisePanel:
                                                     width=130)])
         redraw_on_new_data(self.table)
         self.readout_div = Div(name="noise_readout", text="", width=460)
+        self.pinned = PinnedCurves("noise", ("f_hz", "en_v_rthz"), _pinned_density)
+        self._figures = ()
         self._layout = None
 
     # ------------------------------------------------------------- contract
@@ -121,8 +134,10 @@ class NoisePanel:
 
         from freqpair.analysis.noise import NOISE_CAUTION
         from freqpair.views.stage_plots import noise_figure
-        fig = noise_figure(self.curves, self.marks, height=280)
+        fig = noise_figure(self.curves, self.marks, height=280, pinned=self.pinned.sources)
         fig.name = "noise_figure"
+        self._figures = (fig,)
+        self.pinned.show(NO_PINS, self._figures)       # no pin yet: legend items hidden
         caution = Div(text=f"<small>{_html(NOISE_CAUTION)}</small>", width=460)
         left = column(row(self.at_input, Div(text="<small>Type a frequency like "
                                                   "<code>1 kHz</code>, press Enter: the "
@@ -159,6 +174,7 @@ class NoisePanel:
         self.contributors.data = {c: list(view["contributors"][c])
                                   for c in CONTRIBUTOR_COLUMNS}
         self.readout_div.text = self._readout_html(readout)
+        self.pinned.show(explorer, self._figures)      # pinned designs' e_n, muted
         if self.at_hz is None:          # the box shows the design's first spot
             self._shown_at = readout["at"]
             self.at_input.value = readout["at"]

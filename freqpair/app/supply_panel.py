@@ -14,6 +14,7 @@ import numpy as np
 from freqpair.analysis.summary import format_metric
 from freqpair.design.errors import DesignError, FreqpairError
 from freqpair.design.quantities import format_si
+from freqpair.app.pinned import NO_PINS, PinnedCurves
 
 __all__ = ["SupplyPanel", "parse_target_db", "supply_readout"]
 
@@ -96,6 +97,16 @@ def _html(text: str) -> str:
     return str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
 
 
+def _pinned_psrr(design) -> dict:
+    """A pinned design's PSRR± on its own explorer grid."""
+    from freqpair.analysis.result import analyze
+    from freqpair.app.limits import N_POINTS
+    from freqpair.views.explore import explore_grid
+    from freqpair.views.stage_data import supply_view
+    curves = supply_view(analyze(design), explore_grid(design, N_POINTS))["curves"]
+    return {k: curves[k] for k in ("f_hz", "psrr_pos_db", "psrr_neg_db")}
+
+
 class SupplyPanel:
     """PSRR+ and PSRR− against frequency (corners and the target crossings marked), the
     input impedance |Z_in,dm|, |Z_in,cm| (DM corner marked) and a readout of the numbers.
@@ -132,6 +143,9 @@ class SupplyPanel:
                                       value="60", width=120)
         self.target_input.on_change("value", lambda a, o, n: self._target_changed(n))
         self.readout_div = Div(name="supply_readout", text="", width=760)
+        self.pinned = PinnedCurves("psrr", ("f_hz", "psrr_pos_db", "psrr_neg_db"),
+                                   _pinned_psrr)
+        self._figures = ()
         self._layout = None
 
     # ------------------------------------------------------------- contract
@@ -143,8 +157,11 @@ class SupplyPanel:
         from bokeh.layouts import column, row
 
         from freqpair.views.stage_plots import input_impedance_figure, psrr_figure
-        psrr = psrr_figure(self.psrr, self.marks, target_line=self.target_line, height=235)
+        psrr = psrr_figure(self.psrr, self.marks, target_line=self.target_line, height=235,
+                           pinned=self.pinned.sources)
         psrr.name = "psrr_figure"
+        self._figures = (psrr,)
+        self.pinned.show(NO_PINS, self._figures)       # no pin yet: legend items hidden
         zin = input_impedance_figure(self.zin, self.zin_marks, x_range=psrr.x_range,
                                      height=185)
         zin.name = "zin_figure"
@@ -184,6 +201,7 @@ class SupplyPanel:
         self.zin_marks["corner"].data = dict(zin["marks"]["corner"])
         self.readout = readout
         self.readout_div.text = self._readout_html(readout)
+        self.pinned.show(explorer, self._figures)      # pinned designs' PSRR±, muted
 
     # ------------------------------------------------------------- helpers
     def _readout_html(self, r: dict) -> str:
