@@ -500,3 +500,55 @@ def test_loop_view_in_the_page_shows_the_margins_of_the_design_typed(tmp_path):
                            f"{format_metric('phase_margin_deg', j['phase_margin_deg'])}"
                            f" at {format_metric('crossover_hz', j['crossover_hz'])}")
     assert errors == []
+
+
+PAIR_LINES_JS = """
+const m = Bokeh.documents[0].get_model_by_name('controls');
+const v = Bokeh.index.find_one(m);
+if (!v) { return null; }
+const panel = m.tabs[m.active].child;
+const pv = Bokeh.index.find_one(panel);
+const names = panel.children.filter(c => c.visible).map(c => c.name);
+return [pv.el.scrollHeight, pv.el.clientHeight, names];
+"""
+
+
+@pytest.mark.browser
+def test_a_mos_pair_with_many_keys_scrolls_inside_its_tab_and_the_page_fits(tmp_path):
+    # common practice: the page is usable without scrolling on a 1366×768 screen; a tab
+    # with more lines than fit scrolls inside, every line reachable
+    from freqpair.views.explore import editable_values
+    design_path = ROOT / "examples" / "nmos_resistor_ideal_tail.toml"
+    port = free_port()
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", str(design_path),
+                             "--port", str(port), "--no-browser"], cwd=ROOT, env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    driver = None
+    m = "Bokeh.documents[0].get_model_by_name"
+    try:
+        assert f"127.0.0.1:{port}" in proc.stdout.readline()
+        driver = make_driver(tmp_path)
+        driver.get(f"http://127.0.0.1:{port}/")
+        wait_for_bokeh(driver)
+        bottoms = {}
+        for tab in range(6):
+            driver.execute_script(f"{m}('controls').active = arguments[0];", tab)
+            time.sleep(0.4)
+            bottoms[tab] = driver.execute_script(SIDEBAR_BOTTOM_JS)
+        driver.execute_script(f"{m}('controls').active = 1;")        # the Pair tab
+        time.sleep(0.4)
+        scroll_h, client_h, names = driver.execute_script(PAIR_LINES_JS)
+        errors = console_errors(driver)
+    finally:
+        if driver is not None:
+            driver.quit()
+        stop_server(proc)
+    for tab, (bottom, height) in bottoms.items():
+        assert bottom <= height, f"tab {tab}: bottom {bottom:.0f} px > {height} px"
+    # oracle: the design's own pair keys (freqpair.views.explore.editable_values)
+    keys = [ev.key for ev in editable_values(freqpair.load_design(design_path))
+            if ev.key.startswith("pair.")]
+    assert [n for n in names if n.startswith("row:pair.")] == [f"row:{k}" for k in keys]
+    assert scroll_h > client_h          # more lines than fit: the tab scrolls inside
+    assert errors == []

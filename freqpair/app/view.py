@@ -333,7 +333,12 @@ class Explorer:
         if not self.controls.tabs:
             if self._files is None:
                 self._files = self._files_block()
-            self.controls.tabs = [TabPanel(title=title, child=column(*rows, spacing=0))
+            # a tab of values is at most _VALUES_PX tall and scrolls inside when a
+            # device has more keys (a MOS pair with body effect and noise keys):
+            # the page itself never needs scrolling on a 1366×768 screen
+            self.controls.tabs = [TabPanel(title=title, child=column(
+                *rows, spacing=0, height=_VALUES_PX, sizing_mode="fixed",
+                width=SIDEBAR_PX - 10, styles={"overflow-y": "auto", "overflow-x": "hidden"}))
                                   for (title, _), rows in zip(_SECTIONS, columns)] + [
                 TabPanel(title="Files", child=self._files)]
         else:
@@ -868,6 +873,8 @@ def _show_lines(col, lines, reusable: set) -> None:
 
 
 _TEXT_PX, _SLIDER_PX, _LABEL_PX = 96, 130, 132
+#: Height of a tab of values [px]: twelve lines; longer tabs scroll inside.
+_VALUES_PX = 372
 _MARGIN = (1, 4, 1, 4)
 _ROW_PX = 28
 
