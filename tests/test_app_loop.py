@@ -9,6 +9,7 @@ import pytest
 from bokeh.document import Document
 
 import freqpair
+from freqpair.design.quantities import format_si
 from freqpair.analysis.summary import format_metric
 from freqpair.app.loop_panel import NO_LOOP_HINT, LoopPanel
 from freqpair.app.pole_paths import PATH_STEPS, TOUCH_HINT
@@ -170,8 +171,9 @@ def test_pole_paths_follow_the_value_touched_last_over_its_slider_range(two_stag
     open_view(doc, "Poles & zeros")
     assert TOUCH_HINT in paths.caption.text and len(paths.points.data["x"]) == 0
     w(doc, f"text:{MILLER}").value = "20 pF"
-    ev = next(e for e in freqpair.views.explore.editable_values(ex.design) if e.key == MILLER)
-    values = 10.0 ** np.linspace(ev.slider_lo, ev.slider_hi, PATH_STEPS)
+    # the range the user sees on the value's slider (log10 of the value)
+    slider = w(doc, f"slider:{MILLER}")
+    values = 10.0 ** np.linspace(slider.start, slider.end, PATH_STEPS)
     assert paths.key == MILLER
     np.testing.assert_allclose(paths.values, values, rtol=1e-15)
     # oracle: freqpair.locus on the same design, key and values (|Re|/2π, Im/2π per step)
@@ -188,7 +190,8 @@ def test_pole_paths_follow_the_value_touched_last_over_its_slider_range(two_stag
         np.testing.assert_allclose(got[k], want[k], rtol=1e-12, atol=0)
     assert len({v for _, v in got}) == PATH_STEPS
     # the caption names the key and its range as the text box writes values
-    assert ("second stage miller capacitance from 100 fF to 10 nF, 25 steps"
+    lo, hi = (format_si(float(f"{v:.4g}"), "F", digits=6) for v in (values[0], values[-1]))
+    assert (f"second stage miller capacitance from {lo} to {hi}, 25 steps"
             in paths.caption.text), paths.caption.text
     # the design on screen stays highlighted (the map's own markers: the pz source)
     assert len(ex.pz.data["kind"]) > 0

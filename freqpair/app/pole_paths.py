@@ -116,6 +116,10 @@ class PolePaths:
             self.clear()
             return
         self.computed += 1
+        slider = explorer.sliders.get(key)
+        if slider is not None:          # the range the user sees on the slider
+            ev = dataclasses.replace(ev, slider_lo=float(slider.start),
+                                     slider_hi=float(slider.end))
         values = path_values(ev)
         view = locus_view(explorer.design, key, values)
         points = dict(view["points"])
