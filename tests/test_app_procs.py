@@ -89,3 +89,32 @@ def test_procs_out_of_range_is_one_line(tmp_path):
                          env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
     assert run.returncode == 2 and run.stderr.strip() == \
         "freqpair: error: --procs = 0: must be between 1 and 64"
+
+
+@pytest.mark.browser
+def test_pages_in_chromium_on_two_processes_each_show_their_own_typed_design(two_procs,
+                                                                              tmp_path):
+    # oracle: freqpair.analyze (the library) on the design each page was given, written
+    # as the status line writes it (format_metric)
+    from browser_util import make_driver, type_into, visible_text, wait_for_bokeh, wait_until
+
+    import freqpair
+    from freqpair.analysis.summary import format_metric
+    proc, port = two_procs
+    base = design_from_text(BUILTIN_EXAMPLE)
+    for i, text in enumerate(("5 pF", "8 pF", "13 pF")):
+        driver = make_driver(tmp_path / f"profile{i}")
+        try:
+            driver.get(f"http://127.0.0.1:{port}/")
+            wait_for_bokeh(driver)
+            wait_until(lambda: visible_text(driver, "message"))
+            driver.execute_script(
+                "const m = Bokeh.documents[0].get_model_by_name('controls');"
+                "m.active = m.tabs.findIndex(t => t.title === 'Tail');")
+            time.sleep(0.3)
+            type_into(driver, "text:tail.capacitance", text)
+            a = freqpair.analyze(freqpair.replace_value(base, "tail.capacitance", text))
+            want = f"CMRR corner {format_metric('cmrr_corner_hz', a.cmrr_corner_hz)}"
+            assert wait_until(lambda: want in visible_text(driver, "message"), timeout=20)
+        finally:
+            driver.quit()
