@@ -2,20 +2,24 @@
 
 ``make_driver(tmpdir)`` returns a headless Chrome driver with a fresh profile
 under ``tmpdir``, or calls ``pytest.skip`` saying why (no Chromium, no driver,
-no selenium). ``free_port()`` picks a free loopback port; ``stop_server(proc)``
-ends a server subprocess; ``wait_for_bokeh`` waits until the page's Bokeh
+no selenium). ``free_port()`` picks a free loopback port; ``start_app(design)``
+starts ``freqpair app`` from this checkout and waits until it listens;
+``stop_server(proc)`` ends a server subprocess; ``wait_for_bokeh`` waits until the page's Bokeh
 document exists.
 """
 from __future__ import annotations
 
+import os
 import shutil
 import socket
 import subprocess
+import sys
 import time
 from pathlib import Path
 
 import pytest
 
+ROOT = Path(__file__).resolve().parent.parent
 CHROMIUM = "/usr/bin/chromium"
 CHROMEDRIVER = "/usr/bin/chromedriver"
 FLAGS = ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
@@ -51,6 +55,27 @@ def free_port() -> int:
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         return s.getsockname()[1]
+
+
+def start_app(design=None, *args: str) -> tuple[subprocess.Popen, int]:
+    """Start ``freqpair app [DESIGN] --port P --no-browser [ARGS]`` from this checkout.
+
+    Returns the process (its first output line as ``proc.first_line``) and the
+    port, once the server says it listens there; otherwise stops it and fails
+    with its error output.
+    """
+    port = free_port()
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    cmd = [sys.executable, "-m", "freqpair.cli", "app"] + ([str(design)] if design else [])
+    proc = subprocess.Popen(cmd + ["--port", str(port), "--no-browser", *args], cwd=ROOT,
+                            env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    line = proc.stdout.readline()        # printed once the server listens
+    if f"127.0.0.1:{port}" not in line:
+        err = proc.stderr.read() if proc.poll() is not None else ""
+        stop_server(proc)
+        raise AssertionError(f"freqpair app did not start: {line!r} {err}")
+    proc.first_line = line
+    return proc, port
 
 
 def stop_server(proc: subprocess.Popen, timeout: float = 10.0) -> None:

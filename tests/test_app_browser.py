@@ -1,9 +1,6 @@
 """End-to-end: the real `freqpair app` server in headless Chromium."""
 from __future__ import annotations
 
-import os
-import subprocess
-import sys
 import time
 from pathlib import Path
 
@@ -13,7 +10,7 @@ import freqpair
 from freqpair.design.files import BUILTIN_EXAMPLE
 from freqpair.studies.measured import read_measurement
 
-from browser_util import (console_errors, free_port, make_driver, stop_server,
+from browser_util import (console_errors, make_driver, start_app, stop_server,
                           wait_for_bokeh, wait_until)
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -25,14 +22,8 @@ CORNER_JS = ("const s = Bokeh.documents[0].get_model_by_name('corner_source');"
 
 @pytest.fixture
 def server():
-    port = free_port()
-    env = dict(os.environ, PYTHONPATH=str(ROOT))
-    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", "--no-browser",
-                             "--port", str(port)], cwd=ROOT, env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc, port = start_app()             # fails unless the server says it listens
     try:
-        line = proc.stdout.readline()        # printed once the server listens
-        assert f"127.0.0.1:{port}" in line, proc.stderr.read() if proc.poll() else line
         yield port, proc
     finally:
         stop_server(proc)
@@ -77,15 +68,9 @@ MEASURED = ROOT / "examples" / "measured" / "bench_front_end_cmrr_synthetic.csv"
 @pytest.mark.browser
 def test_measurement_uploaded_in_the_page_shows_markers_and_residual(tmp_path):
     import base64
-    port = free_port()
-    env = dict(os.environ, PYTHONPATH=str(ROOT))
-    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app",
-                             str(ROOT / "examples" / "npn_resistor_rc_tail.toml"), "--no-browser",
-                             "--port", str(port)], cwd=ROOT, env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc, port = start_app(ROOT / "examples" / "npn_resistor_rc_tail.toml")
     driver = None
     try:
-        assert f"127.0.0.1:{port}" in proc.stdout.readline()
         driver = make_driver(tmp_path)
         driver.get(f"http://127.0.0.1:{port}/")
         wait_for_bokeh(driver)
@@ -273,16 +258,11 @@ def _expected(design):
 @pytest.mark.browser
 def test_tables_and_status_line_show_the_design_typed_in_the_page(tmp_path):
     from browser_util import click_tab, table_text, type_into, visible_text
-    port = free_port()
-    env = dict(os.environ, PYTHONPATH=str(ROOT))
-    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", str(TWO_STAGE),
-                             "--port", str(port), "--no-browser"], cwd=ROOT, env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc, port = start_app(TWO_STAGE)
     driver = None
     design = freqpair.load_design(TWO_STAGE)
     seen, bottoms = [], {}
     try:
-        assert f"127.0.0.1:{port}" in proc.stdout.readline()
         driver = make_driver(tmp_path)
         driver.get(f"http://127.0.0.1:{port}/")
         wait_for_bokeh(driver)
@@ -393,16 +373,11 @@ def test_legends_show_the_pins_and_gains_of_the_design_typed_in_the_page(tmp_pat
     from browser_util import click_button, click_tab, legend_entries, type_into
     from freqpair.app.view import _PRIMARY_LABEL
     from freqpair.views.explore import design_difference
-    port = free_port()
-    env = dict(os.environ, PYTHONPATH=str(ROOT))
-    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", str(TWO_STAGE),
-                             "--port", str(port), "--no-browser"], cwd=ROOT, env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc, port = start_app(TWO_STAGE)
     driver = None
     pinned = design = freqpair.load_design(TWO_STAGE)
     seen = []
     try:
-        assert f"127.0.0.1:{port}" in proc.stdout.readline()
         driver = make_driver(tmp_path)
         driver.get(f"http://127.0.0.1:{port}/")
         wait_for_bokeh(driver)
@@ -459,18 +434,13 @@ LOOP_MARKS = (("crossover", "crossover_hz"), ("phase margin", "phase_margin_deg"
 def test_loop_view_in_the_page_shows_the_margins_of_the_design_typed(tmp_path):
     from browser_util import click_tab, type_into, visible_text
     from freqpair.analysis.summary import format_metric
-    port = free_port()
-    env = dict(os.environ, PYTHONPATH=str(ROOT))
-    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", str(TWO_STAGE),
-                             "--port", str(port), "--no-browser"], cwd=ROOT, env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc, port = start_app(TWO_STAGE)
     driver = None
     design = freqpair.replace_value(freqpair.load_design(TWO_STAGE),
                                     "second_stage.miller_capacitance", "30 pF")
     j = freqpair.analyze(design).to_json()
     want = [f"{words} {format_metric(key, j[key])}" for words, key in LOOP_MARKS]
     try:
-        assert f"127.0.0.1:{port}" in proc.stdout.readline()
         driver = make_driver(tmp_path)
         driver.get(f"http://127.0.0.1:{port}/")
         wait_for_bokeh(driver)
@@ -519,15 +489,10 @@ def test_a_mos_pair_with_many_keys_scrolls_inside_its_tab_and_the_page_fits(tmp_
     # with more lines than fit scrolls inside, every line reachable
     from freqpair.views.explore import editable_values
     design_path = ROOT / "examples" / "nmos_resistor_ideal_tail.toml"
-    port = free_port()
-    env = dict(os.environ, PYTHONPATH=str(ROOT))
-    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", str(design_path),
-                             "--port", str(port), "--no-browser"], cwd=ROOT, env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc, port = start_app(design_path)
     driver = None
     m = "Bokeh.documents[0].get_model_by_name"
     try:
-        assert f"127.0.0.1:{port}" in proc.stdout.readline()
         driver = make_driver(tmp_path)
         driver.get(f"http://127.0.0.1:{port}/")
         wait_for_bokeh(driver)

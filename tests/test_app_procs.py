@@ -19,7 +19,7 @@ import pytest
 from freqpair.design.files import BUILTIN_EXAMPLE, design_from_text
 from freqpair.views.explore import explore, explore_grid
 
-from browser_util import free_port
+from browser_util import start_app
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -41,13 +41,9 @@ def _alive(pid: int) -> bool:
 def two_procs():
     if not Path("/proc/self/stat").exists() or not hasattr(os, "fork"):
         pytest.skip("needs fork and /proc")
-    port = free_port()
-    env = dict(os.environ, PYTHONPATH=str(ROOT))
-    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", "--port", str(port),
-                             "--procs", "2", "--no-browser"], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True, cwd=ROOT, env=env)
+    proc, port = start_app(None, "--procs", "2")
     try:
-        line = proc.stdout.readline()
+        line = proc.first_line
         assert "freqpair explorer at" in line and "2 server processes" in line, line
         yield proc, port
     finally:

@@ -383,22 +383,14 @@ def _psrr_crossing_hz(analysis, rail, target_db):
 
 @pytest.mark.browser
 def test_supply_readout_in_the_page_follows_a_typed_tail_capacitance(tmp_path):
-    import os
-    import subprocess
-    import sys
     import time
 
-    from browser_util import (click_tab, console_errors, free_port, make_driver, stop_server,
+    from browser_util import (click_tab, console_errors, make_driver, start_app, stop_server,
                               type_into, visible_text, wait_for_bokeh, wait_until)
     t0 = time.monotonic()
-    port = free_port()
-    env = dict(os.environ, PYTHONPATH=str(ROOT))
-    proc = subprocess.Popen([sys.executable, "-m", "freqpair.cli", "app", "--no-browser",
-                             "--port", str(port)], cwd=ROOT, env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc, port = start_app()
     driver = None
     try:
-        assert f"127.0.0.1:{port}" in proc.stdout.readline()
         driver = make_driver(tmp_path)
         driver.get(f"http://127.0.0.1:{port}/")
         wait_for_bokeh(driver)

@@ -87,17 +87,8 @@ class Analysis:
         """
         if self.cmrr_se_db is None or self.cmrr_se_db <= level_db:
             return None
-        resp = self.responses
-        o2_row, _ = resp.output_row("adm_se")
-        dm_cm = np.column_stack([resp.excitation("dm"), resp.excitation("cm")])
-
-        def cmrr_curve(f):
-            h = np.array([resp.solver.transfer_at(complex(s), dm_cm, o2_row)
-                          for s in s_of_hz(np.atleast_1d(f))])      # (n_f, 2)
-            return db(h[:, 0]) - db(h[:, 1])
-
         on_grid = self.__dict__.get("_cmrr_se_on_grid")
-        return lowest_crossing(cmrr_curve, level_db, self._search, on_grid)
+        return lowest_crossing(_cmrr_se_curve(self.responses), level_db, self._search, on_grid)
 
     @property
     def tail(self) -> TailNorton | None:
@@ -164,6 +155,19 @@ class Analysis:
         if result is None:      # zero gain: no loop to speak of
             return {key: None for key in LOOP_JSON_KEYS}
         return result.to_json()
+
+
+def _cmrr_se_curve(resp: StageResponses):
+    """Single-ended CMRR [dB] at given frequencies [Hz] by direct solves of the two
+    gains at o2 (the root-finding steps of the CMRR corner and target crossings)."""
+    o2_row, _ = resp.output_row("adm_se")
+    dm_cm = np.column_stack([resp.excitation("dm"), resp.excitation("cm")])
+
+    def cmrr_db(f):
+        h = np.array([resp.solver.transfer_at(complex(s), dm_cm, o2_row)
+                      for s in s_of_hz(np.atleast_1d(f))])      # (n_f, 2)
+        return db(h[:, 0]) - db(h[:, 1])
+    return cmrr_db
 
 
 def _gain_db(value: complex, reference: float) -> float | None:
@@ -258,15 +262,7 @@ def _analyze(design: Design) -> Analysis:
     if acm_se_db is not None and se_ref > 0:
         cmrr_se_db = 20 * math.log10(se_ref) - acm_se_db
 
-        o2_row, _ = resp.output_row("adm_se")
-        dm_cm = np.column_stack([resp.excitation("dm"), resp.excitation("cm")])
-
-        def cmrr_curve(f):
-            h = np.array([resp.solver.transfer_at(complex(s), dm_cm, o2_row)
-                          for s in s_of_hz(np.atleast_1d(f))])      # (n_f, 2)
-            return db(h[:, 0]) - db(h[:, 1])
-
-        corner = lowest_crossing(cmrr_curve, cmrr_se_db - DB_3, grid,
+        corner = lowest_crossing(_cmrr_se_curve(resp), cmrr_se_db - DB_3, grid,
                                  db(on_grid.adm_se) - db(on_grid.acm_se))
     cmrr_db = cmrr_textbook_db = None
     if stage.balanced:

@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from freqpair.app.pinned import PinnedCurves, label_pin_legends
+
 __all__ = ["LoopPanel", "NO_LOOP_HINT"]
 
 #: What the view says for a design without ``[feedback]``.
@@ -58,21 +60,18 @@ class LoopPanel:
 
     def __init__(self):
         from bokeh.models import ColumnDataSource, Div
-
-        from freqpair.app.limits import MAX_PINS
         self.curves = ColumnDataSource(_empty(_CURVES), name="loop_curves")
         self.step = ColumnDataSource(_empty(_STEP), name="loop_step")
         self.marks = {k: ColumnDataSource({"x": [], "y": [], "text": []},
                                           name=f"loop_mark:{k}") for k in MARK_KEYS}
-        self.pinned = [ColumnDataSource(_empty(_PIN_CURVES), name=f"loop_pin:{k}")
-                       for k in range(MAX_PINS)]
-        self.pinned_step = [ColumnDataSource(_empty(_PIN_STEP), name=f"loop_pin_step:{k}")
-                            for k in range(MAX_PINS)]
+        self._pins = PinnedCurves({"loop_pin": _PIN_CURVES, "loop_pin_step": _PIN_STEP},
+                                  _pinned_loop)
+        self.pinned = self._pins.groups["loop_pin"]
+        self.pinned_step = self._pins.groups["loop_pin_step"]
         self.hint = Div(name="loop_hint", text="", sizing_mode="stretch_width")
         self.readout = Div(name="loop_readout", text="", sizing_mode="stretch_width")
         self.figures = ()
         self.computed = 0
-        self._pin_cache: dict = {}     # pin number -> its loop_view (None: no loop)
 
     def layout(self):
         """The view's plots: |T| and ∠T on the left, closed loop and step on the right."""
@@ -87,7 +86,7 @@ class LoopPanel:
         closed.name, step.name = "closed_loop_figure", "step_figure"
         mag.xaxis.axis_label = None
         self.figures = (mag, ph, closed, step)
-        self._label_pins([])
+        label_pin_legends(self.figures, [])        # no pin yet: legend items hidden
         return column(self.hint,
                       row(column(mag, ph, sizing_mode="stretch_width"),
                           column(closed, step, sizing_mode="stretch_width"),
@@ -131,52 +130,23 @@ class LoopPanel:
             else:
                 self.hint.text = ""
             self.readout.text = _readout(view["marks"])
-        self._show_pins(explorer)
-
-    def _show_pins(self, explorer) -> None:
-        """Pinned designs' loop curves, each computed once (when first shown)."""
-        pins = list(explorer.pins)
-        numbers = {p.number for p in pins}
-        self._pin_cache = {n: v for n, v in self._pin_cache.items() if n in numbers}
-        by_slot = {p.slot: p for p in pins}
-        for slot, (src, step_src) in enumerate(zip(self.pinned, self.pinned_step)):
-            pin = by_slot.get(slot)
-            view = None if pin is None else self._pin_view(pin)
-            if view is None:
-                if len(src.data.get("f_hz", ())):
-                    src.data = _empty(_PIN_CURVES)
-                if len(step_src.data.get("t_s", ())):
-                    step_src.data = _empty(_PIN_STEP)
-                continue
-            src.data = {k: view["curves"][k] for k in _PIN_CURVES}
-            step_src.data = {"t_s": view["step"]["t_s"], "y": view["step"]["y"]}
-        shown = [(p.slot, label) for p, label in zip(pins, explorer.pin_labels())
-                 if self._pin_cache.get(p.number) is not None]
-        self._label_pins(shown)
-
-    def _pin_view(self, pin):
-        if pin.number not in self._pin_cache:
-            from freqpair.analysis.result import analyze
-            from freqpair.app.limits import N_POINTS
-            from freqpair.views.explore import explore_grid
-            from freqpair.views.stage_data import loop_view
-            view = None
-            if pin.design.feedback is not None:
-                try:
-                    view = loop_view(analyze(pin.design), explore_grid(pin.design, N_POINTS))
-                except Exception:       # a pin that cannot be drawn is left out
-                    view = None
-            self._pin_cache[pin.number] = view
-        return self._pin_cache[pin.number]
-
-    def _label_pins(self, shown) -> None:
-        """Show each slot's legend items with its pin's words; hide the others."""
-        from freqpair.app.pinned import label_pin_legends
-        label_pin_legends(self.figures, shown)
+        self._pins.show(explorer, self.figures)     # pinned designs' loops, muted
 
     def readout_texts(self) -> list[str]:
         """The marks' texts on screen, in :data:`MARK_KEYS` order (missing ones left out)."""
         return [t for k in MARK_KEYS for t in self.marks[k].data["text"]]
+
+
+def _pinned_loop(design) -> dict | None:
+    """A pinned design's loop curves and step on its own explorer grid (None: no loop)."""
+    if design.feedback is None:
+        return None
+    from freqpair.analysis.result import analyze
+    from freqpair.app.limits import N_POINTS
+    from freqpair.views.explore import explore_grid
+    from freqpair.views.stage_data import loop_view
+    view = loop_view(analyze(design), explore_grid(design, N_POINTS))
+    return {"loop_pin": view["curves"], "loop_pin_step": view["step"]}
 
 
 def _note(text: str) -> str:

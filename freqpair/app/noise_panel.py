@@ -73,7 +73,8 @@ def _pinned_density(design) -> dict:
     from freqpair.app.limits import N_POINTS
     from freqpair.views.explore import explore_grid
     f = explore_grid(design, N_POINTS)
-    return {"f_hz": f, "en_v_rthz": noise_curves(analyze(design).responses, f).input_v_rthz}
+    return {"noise_pin": {"f_hz": f,
+                          "en_v_rthz": noise_curves(analyze(design).responses, f).input_v_rthz}}
 
 
 class NoisePanel:
@@ -119,7 +120,7 @@ class NoisePanel:
                                                     width=130)])
         redraw_on_new_data(self.table)
         self.readout_div = Div(name="noise_readout", text="", width=460)
-        self.pinned = PinnedCurves("noise", ("f_hz", "en_v_rthz"), _pinned_density)
+        self.pinned = PinnedCurves({"noise_pin": ("f_hz", "en_v_rthz")}, _pinned_density)
         self._figures = ()
         self._layout = None
 
@@ -150,23 +151,14 @@ class NoisePanel:
     def show(self, explorer) -> None:
         """Compute the view for the explorer's design on screen and show it.
 
-        Raises
-        ------
-        FreqpairError
-            The view could not be computed (one line); the sources keep what they had.
+        An error leaves the sources as they were (the explorer says it in one
+        line: :meth:`freqpair.app.view.Explorer.show_panel`).
         """
         from freqpair.views.stage_data import noise_view
         self._explorer = explorer
         f = np.asarray(explorer.curves.data["f_hz"], dtype=float)
-        try:
-            view = noise_view(explorer.analysis, f, self.at_hz)
-            readout = noise_readout(view)
-        except FreqpairError:
-            raise
-        except Exception as exc:   # one line, never a traceback in the page
-            msg = str(exc).splitlines()[0] if str(exc) else ""
-            raise DesignError(f"could not compute the noise view ({exc.__class__.__name__}: "
-                              f"{msg})") from None
+        view = noise_view(explorer.analysis, f, self.at_hz)
+        readout = noise_readout(view)
         self.computed += 1
         self.view, self.readout = view, readout
         self.curves.data = {k: np.asarray(v, dtype=float) for k, v in view["curves"].items()}
@@ -205,11 +197,10 @@ class NoisePanel:
             return            # computed when the tab opens
         ex.doc.hold("combine")
         try:
-            self.show(ex)
-        except FreqpairError as exc:
-            self.at_hz = old
-            ex._say(f"{self.title}: {exc} — kept the last good result", bad=True)
-            return
+            shown = ex.show_panel(self)
         finally:
             ex.doc.unhold()
+        if not shown:
+            self.at_hz = old
+            return
         ex._say(f"noise at {self.readout['at']}: e_n {self.readout['spot']}", bad=False)

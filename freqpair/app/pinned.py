@@ -52,26 +52,35 @@ NO_PINS = _NoPins()
 
 
 class PinnedCurves:
-    """One source per pin slot, filled with each pinned design's columns.
+    """Sources per pin slot, filled with each pinned design's columns.
 
     Parameters
     ----------
-    name : str
-        Sources are called ``"{name}_pin:{slot}"``.
-    columns : tuple of str
-        The columns each source holds.
+    groups : dict of str to tuple of str
+        One group of sources per entry: sources are called ``"{group}:{slot}"``
+        and hold the given columns (e.g. a loop view's curves and its step).
     compute : callable
-        ``compute(design) -> dict`` of those columns for a pinned design, or None
-        when the design has none (e.g. no loop); an exception leaves that pin out.
+        ``compute(design) -> {group: {column: values}}`` for a pinned design, or
+        None when the design has none (e.g. no loop); an exception leaves that
+        pin out.
+
+    Attributes
+    ----------
+    groups : dict of str to list of ColumnDataSource
+        Each group's sources, one per slot.
+    sources : list of ColumnDataSource
+        The first group's sources (what a one-group view draws).
     """
 
-    def __init__(self, name: str, columns, compute):
+    def __init__(self, groups: dict, compute):
         from bokeh.models import ColumnDataSource
-        self.columns = tuple(columns)
-        self.sources = [ColumnDataSource({c: [] for c in self.columns}, name=f"{name}_pin:{k}")
-                        for k in range(MAX_PINS)]
+        self._columns = {g: tuple(cols) for g, cols in groups.items()}
+        self.groups = {g: [ColumnDataSource({c: [] for c in cols}, name=f"{g}:{k}")
+                           for k in range(MAX_PINS)]
+                       for g, cols in self._columns.items()}
+        self.sources = next(iter(self.groups.values()))
         self._compute = compute
-        self._cache: dict = {}        # pin number -> its columns (None: not drawn)
+        self._cache: dict = {}        # pin number -> its groups' columns (None: not drawn)
 
     def _columns_of(self, pin):
         if pin.number not in self._cache:
@@ -86,14 +95,16 @@ class PinnedCurves:
         pins = list(explorer.pins)
         self._cache = {n: v for n, v in self._cache.items() if n in {p.number for p in pins}}
         by_slot = {p.slot: p for p in pins}
-        for slot, src in enumerate(self.sources):
+        for slot in range(MAX_PINS):
             pin = by_slot.get(slot)
-            cols = None if pin is None else self._columns_of(pin)
-            if cols is None:
-                if any(len(v) for v in src.data.values()):
-                    src.data = {c: [] for c in self.columns}
-                continue
-            src.data = {c: cols[c] for c in self.columns}
+            got = None if pin is None else self._columns_of(pin)
+            for group, columns in self._columns.items():
+                src = self.groups[group][slot]
+                if got is None:
+                    if any(len(v) for v in src.data.values()):
+                        src.data = {c: [] for c in columns}
+                else:
+                    src.data = {c: got[group][c] for c in columns}
         shown = [(p.slot, words) for p, words in zip(pins, explorer.pin_labels())
                  if self._cache.get(p.number) is not None]
         label_pin_legends(figures, shown)

@@ -12,34 +12,17 @@ from __future__ import annotations
 import numpy as np
 
 from freqpair.analysis.summary import format_metric
-from freqpair.design.errors import DesignError, FreqpairError
+from freqpair.design.errors import FreqpairError
 from freqpair.design.quantities import format_si
 from freqpair.app.pinned import NO_PINS, PinnedCurves
+from freqpair.views.explore import parse_target_db
 
-__all__ = ["SupplyPanel", "parse_target_db", "supply_readout"]
+__all__ = ["SupplyPanel", "supply_readout"]
 
 _MARKS = ("corner_pos", "corner_neg", "target_pos", "target_neg")
 _PSRR_COLUMNS = ("f_hz", "psrr_pos_db", "psrr_neg_db", "a_vpos_db", "a_vneg_db")
 _ZIN_COLUMNS = ("f_hz", "zin_dm_ohm", "zin_cm_ohm", "zin_dm_deg", "zin_cm_deg")
 _SIGN = {"pos": "+", "neg": "−"}
-
-
-def parse_target_db(text: str, what: str = "PSRR target") -> float:
-    """A target typed as ``"60"`` or ``"60 dB"`` [dB].
-
-    Raises
-    ------
-    DesignError
-        One line naming the field and the value (not a number, or outside ±400 dB).
-    """
-    body = str(text).strip().removesuffix("dB").strip()
-    try:
-        value = float(body)
-    except ValueError:
-        raise DesignError(f"{what} = {text!r}: not a number of dB") from None
-    if not -400 < value < 400:
-        raise DesignError(f"{what} = {text!r}: outside ±400 dB")
-    return value
 
 
 def _crossing_text(view: dict, sign: str, target_db: float) -> str:
@@ -103,8 +86,7 @@ def _pinned_psrr(design) -> dict:
     from freqpair.app.limits import N_POINTS
     from freqpair.views.explore import explore_grid
     from freqpair.views.stage_data import supply_view
-    curves = supply_view(analyze(design), explore_grid(design, N_POINTS))["curves"]
-    return {k: curves[k] for k in ("f_hz", "psrr_pos_db", "psrr_neg_db")}
+    return {"psrr_pin": supply_view(analyze(design), explore_grid(design, N_POINTS))["curves"]}
 
 
 class SupplyPanel:
@@ -143,7 +125,7 @@ class SupplyPanel:
                                       value="60", width=120)
         self.target_input.on_change("value", lambda a, o, n: self._target_changed(n))
         self.readout_div = Div(name="supply_readout", text="", width=760)
-        self.pinned = PinnedCurves("psrr", ("f_hz", "psrr_pos_db", "psrr_neg_db"),
+        self.pinned = PinnedCurves({"psrr_pin": ("f_hz", "psrr_pos_db", "psrr_neg_db")},
                                    _pinned_psrr)
         self._figures = ()
         self._layout = None
@@ -173,24 +155,15 @@ class SupplyPanel:
     def show(self, explorer) -> None:
         """Compute the view for the explorer's design on screen and show it.
 
-        Raises
-        ------
-        FreqpairError
-            The view could not be computed (one line); the sources keep what they had.
+        An error leaves the sources as they were (the explorer says it in one
+        line: :meth:`freqpair.app.view.Explorer.show_panel`).
         """
         from freqpair.views.stage_data import input_view, supply_view
         self._explorer = explorer
         f = np.asarray(explorer.curves.data["f_hz"], dtype=float)
-        try:
-            supply = supply_view(explorer.analysis, f, self.target_db)
-            zin = input_view(explorer.analysis, f)
-            readout = supply_readout(supply, zin, self.target_db)
-        except FreqpairError:
-            raise
-        except Exception as exc:   # one line, never a traceback in the page
-            msg = str(exc).splitlines()[0] if str(exc) else ""
-            raise DesignError(f"could not compute the supply view ({exc.__class__.__name__}: "
-                              f"{msg})") from None
+        supply = supply_view(explorer.analysis, f, self.target_db)
+        zin = input_view(explorer.analysis, f)
+        readout = supply_readout(supply, zin, self.target_db)
         self.computed += 1
         self.psrr.data = {k: np.asarray(v, dtype=float) for k, v in supply["curves"].items()}
         for k in _MARKS:
@@ -224,7 +197,7 @@ class SupplyPanel:
     def _target_changed(self, text: str) -> None:
         say = self._explorer._say if self._explorer is not None else None
         try:
-            value = parse_target_db(text)
+            value = parse_target_db(text, "PSRR target")
         except FreqpairError as exc:
             if say is not None:
                 say(f"{exc} — kept the last good result", bad=True)
@@ -236,11 +209,10 @@ class SupplyPanel:
         doc = self._explorer.doc
         doc.hold("combine")
         try:
-            self.show(self._explorer)
-        except FreqpairError as exc:
-            self.target_db = old
-            say(f"{self.title}: {exc} — kept the last good result", bad=True)
-            return
+            shown = self._explorer.show_panel(self)
         finally:
             doc.unhold()
+        if not shown:
+            self.target_db = old
+            return
         say(f"PSRR target {value:g} dB", bad=False)

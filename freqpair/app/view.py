@@ -18,7 +18,7 @@ from bokeh.models import (Button, ColumnDataSource, CustomJS, DataTable, Div, Fi
 from freqpair.design.files import BUILTIN_EXAMPLE, design_from_text, load_design
 from freqpair.design.schema import design_to_dict, parse_design
 from freqpair.design.keys import replace_value
-from freqpair.design.errors import DesignError, FreqpairError
+from freqpair.design.errors import FreqpairError
 from freqpair.views.explore import (
     EXPLORE_PARTS,
     KIND_CHOICES,
@@ -28,6 +28,7 @@ from freqpair.views.explore import (
     editable_values,
     explore,
     explore_grid,
+    parse_target_db,
     switch_kind,
     with_second_stage,
 )
@@ -36,7 +37,6 @@ from freqpair.views.plots import (
     PALETTE,
     bode_figure,
     cmrr_figure,
-    pin_legend_items,
     pole_zero_figure,
     set_cmrr_balanced,
     set_gain_hover,
@@ -46,6 +46,7 @@ from freqpair.views.plots import (
 from freqpair.app.measured_panel import MAX_FILE_BYTES, MeasuredPanel, upload_text
 from freqpair.app.sources import set_columns
 from freqpair.app.limits import MAX_PINS, N_POINTS
+from freqpair.app.pinned import label_pin_legends
 from freqpair.app.pole_paths import PolePaths
 from freqpair.app.redraw import redraw_on_new_data as _redraw_on_new_data
 from freqpair.app.structure_controls import StructureControls, structure_key
@@ -533,15 +534,7 @@ class Explorer:
         return self._apply_and_rebuild(design)
 
     def _target_db(self) -> float:
-        text = self.target_input.value.strip().removesuffix("dB").strip()
-        try:
-            value = float(text)
-        except ValueError:
-            raise DesignError(f"CMRR target = {self.target_input.value!r}: "
-                              "not a number of dB") from None
-        if not -400 < value < 400:
-            raise DesignError(f"CMRR target = {value:g} dB: outside ±400 dB")
-        return value
+        return parse_target_db(self.target_input.value, "CMRR target")
 
     def apply(self, design, need_measured: bool = False) -> bool:
         """Analyse ``design`` and show it; on any error keep the last good result.
@@ -655,12 +648,24 @@ class Explorer:
             tabs[i] = TabPanel(title=tabs[i].title, child=self.panels[k].layout())
             self._views.tabs = tabs
             self._built.add(k)
+        if self.show_panel(self.panels[k]):
+            self._stale.discard(k)
+
+    def show_panel(self, panel) -> bool:
+        """Fill ``panel`` from the design on screen (its own controls call this too).
+
+        Any error is one line in the status (the panel keeps what it showed) and
+        False; the session carries on.
+        """
         try:
-            self.panels[k].show(self)
-        except FreqpairError as exc:
-            self._say(f"{self.panels[k].title}: {exc}", bad=True)
-            return
-        self._stale.discard(k)
+            panel.show(self)
+        except Exception as exc:     # never let a session die on one bad value
+            text = str(exc) if isinstance(exc, FreqpairError) else (
+                f"could not compute the view ({exc.__class__.__name__}: "
+                f"{str(exc).splitlines()[0] if str(exc) else ''})")
+            self._say(f"{panel.title}: {text} — kept the last good result", bad=True)
+            return False
+        return True
 
     def _view_opened(self, active) -> None:
         k = self._panel_index(active)
@@ -793,16 +798,8 @@ class Explorer:
         """Show each slot's legend item with its pin's name; hide empty slots."""
         if self._figures is None:
             return
-        from bokeh.core.properties import value
-        by_slot = {p.slot: text for p, text in zip(self.pins, self.pin_labels())}
-        for fig in self._figures:
-            for slot in range(MAX_PINS):
-                for item in pin_legend_items(fig, slot):
-                    shown = slot in by_slot
-                    if item.visible != shown:
-                        item.visible = shown
-                    if shown and item.label != value(by_slot[slot]):
-                        item.label = value(by_slot[slot])
+        label_pin_legends(self._figures, [(p.slot, text) for p, text
+                                          in zip(self.pins, self.pin_labels())])
 
     def _download(self, filename, text, mime):
         self._downloads += 1

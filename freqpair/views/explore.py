@@ -26,7 +26,8 @@ from freqpair.analysis.summary import format_metric
 from freqpair.design.quantities import format_si
 from freqpair.analysis.responses import ZERO_GAIN_RATIO
 
-__all__ = ["explore", "EXPLORE_PARTS", "explore_grid", "editable_values", "EditableValue", "switch_kind",
+__all__ = ["explore", "EXPLORE_PARTS", "parse_target_db",
+           "explore_grid", "editable_values", "EditableValue", "switch_kind",
            "KIND_CHOICES", "curves_csv", "CURVE_COLUMNS", "measured_view", "MEASURED_PLOT",
            "SECOND_STAGE_DEFAULTS", "with_second_stage", "design_difference"]
 
@@ -349,6 +350,25 @@ def design_difference(old: Design, new: Design, limit: int = 2) -> str:
     return ", ".join(parts)
 
 
+def parse_target_db(text: str, what: str) -> float:
+    """A target typed as ``"60"`` or ``"60 dB"`` [dB] (``what``: the field's words).
+
+    Raises
+    ------
+    DesignError
+        One line naming the field and the value (not a number, or outside ±400 dB).
+    """
+    body = str(text).strip().removesuffix("dB").strip()
+    try:
+        value = float(body)
+    except ValueError:
+        raise DesignError(f"{what} = {text!r}: not a number of dB") from None
+    if not -400 < value < 400:
+        raise DesignError(f"{what} = {text!r}: outside ±400 dB")
+    return value
+
+
+
 # ------------------------------------------------------------------ the data
 def explore_grid(design: Design, n_points: int = 500) -> np.ndarray:
     """Log grid [Hz] over the design's sweep range with ``n_points`` points."""
@@ -468,11 +488,6 @@ def _cross_text(analysis, target_db, cross_hz) -> str:
     return "never in range"
 
 
-def _target_crossing(analysis, target_db: float) -> float | None:
-    """Lowest frequency [Hz] where the single-ended CMRR falls to ``target_db``."""
-    return analysis.cmrr_se_crossing_hz(target_db)
-
-
 def _hand_rows(analysis) -> dict:
     cols = {"quantity": [], "exact": [], "approx": [], "error": [], "method": []}
     for r in hand_table(analysis):
@@ -564,7 +579,7 @@ def explore(design: Design, f_hz=None, target_db: float = 60.0, analysis=None,
         curves[k] = np.where(np.isfinite(curves["acm_se_db"]), curves[k], np.nan)
 
     corner = analysis.cmrr_corner_hz
-    cross = _target_crossing(analysis, float(target_db))
+    cross = analysis.cmrr_se_crossing_hz(float(target_db))
     marks = [x for x in (corner, cross) if x is not None]
     at_marks = analysis.responses.at(marks, signal_only=True) if marks else None
     mark_db = list(db(at_marks.adm_se) - db(at_marks.acm_se)) if marks else []
